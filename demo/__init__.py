@@ -1,0 +1,1 @@
+"""Demo business generator (installed as churnlife.demo)."""

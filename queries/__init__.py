@@ -1,0 +1,1 @@
+"""SQL files for the extract (installed as churnlife.queries)."""
