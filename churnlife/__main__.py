@@ -1,0 +1,3 @@
+from churnlife.cli import main
+import sys
+sys.exit(main())

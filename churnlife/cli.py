@@ -1,0 +1,149 @@
+"""Command line: ``churnlife demo``, ``churnlife run``, ``churnlife check``.
+
+A user's mistake (``UserError``) prints one message and exits 2, with no traceback.
+"""
+
+from __future__ import annotations
+
+import argparse
+import shutil
+import sys
+import time
+from importlib import resources
+from pathlib import Path
+
+from churnlife import __version__
+from churnlife.errors import UserError
+
+EXAMPLES = """\
+examples:
+  churnlife demo                          build the demo database and analyse it
+  churnlife demo --folder /tmp/tidewell   the same, in another folder
+  churnlife check --config my.toml        validate a config against the data; write nothing
+  churnlife run --config my.toml          analyse; write tables, charts and report.html
+  churnlife run --config my.toml --output out/2026-12
+"""
+
+
+def _parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(
+        prog="churnlife",
+        description="Customer churn and subscription lifetime from a subscription event log.",
+        epilog=EXAMPLES,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    p.add_argument("--version", action="version", version=f"churnlife {__version__}")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND")
+
+    demo = sub.add_parser(
+        "demo",
+        help="build the demo business's database and config, then analyse it",
+        description="Build the Tidewell Coffee Club demo (a fictional coffee-bean subscription) "
+        "as a DuckDB file plus its config, then run the analysis on it.",
+        epilog="example:\n  churnlife demo --folder churnlife-demo",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    demo.add_argument("--folder", default="churnlife-demo", help="where to put it all")
+    demo.add_argument("--customers", type=int, default=60_000, help="customers to simulate")
+    demo.add_argument("--seed", type=int, default=20261202, help="random seed")
+    demo.add_argument("--build-only", action="store_true", help="build the data; skip analysis")
+
+    for name, text in (
+        ("run", "analyse the log named in a config and write the output folder"),
+        ("check", "validate a config and the data it names; print the data summary"),
+    ):
+        cmd = sub.add_parser(
+            name,
+            help=text,
+            description=text,
+            epilog=f"example:\n  churnlife {name} --config churnlife-demo/churnlife.toml",
+            formatter_class=argparse.RawDescriptionHelpFormatter,
+        )
+        cmd.add_argument("--config", required=True, help="path of the TOML config")
+        if name == "run":
+            cmd.add_argument("--output", help="output folder (default: [output] folder)")
+    return p
+
+
+def _say(msg: str) -> None:
+    print(msg, flush=True)
+
+
+def _run(config_path: str, output: str | None) -> int:
+    from churnlife.config import load_config
+    from churnlife.pipeline import analyse, write_outputs
+
+    t0 = time.perf_counter()
+    config = load_config(config_path)
+    _say(f"churnlife: reading {config.source.events} ({config.source.kind}) …")
+    analysis = analyse(config)
+    s = analysis.extract.summary
+    _say(
+        f"  {int(s['n_spells']):,} spells of {int(s['n_customers_with_spells']):,} customers; "
+        f"{analysis.counts.height:,} count rows over {len(analysis.km.curves)} cohorts"
+    )
+    folder = write_outputs(analysis, Path(output).resolve() if output else None)
+    for m in analysis.km.medians:
+        med = "not reached" if m.median != m.median else f"{m.median:g} {config.tenure_unit}"
+        _say(f"  median tenure, {m.cohort}: {med}")
+    _say(f"  wrote {folder}/report.html ({time.perf_counter() - t0:.1f} s)")
+    return 0
+
+
+def _check(config_path: str) -> int:
+    from churnlife.config import load_config
+    from churnlife.extract import run_extract
+    from churnlife.sections.overview import anomaly_rows, data_summary_rows
+    from churnlife.source import open_source
+
+    config = load_config(config_path)
+    extract = run_extract(config, open_source(config))
+    _say(f"config {config_path} is valid and the data can be read.")
+    for k, v in {**data_summary_rows(extract.summary), **anomaly_rows(extract.summary)}.items():
+        _say(f"  {k}: {v}")
+    return 0
+
+
+def _demo(folder: str, customers: int, seed: int, build_only: bool) -> int:
+    from churnlife.demo.generate import build_demo
+
+    if customers < 100:
+        raise UserError("--customers must be at least 100.")
+    target = Path(folder).resolve()
+    target.mkdir(parents=True, exist_ok=True)
+    db = target / "tidewell.duckdb"
+    t0 = time.perf_counter()
+    info = build_demo(db, n_customers=customers, seed=seed)
+    config = target / "churnlife.toml"
+    with resources.as_file(resources.files("churnlife.demo").joinpath("churnlife.toml")) as src:
+        shutil.copyfile(src, config)
+    _say(
+        f"churnlife: built {db} ({info.get('customers', customers):,} customers, "
+        f"{info.get('events', 0):,} events) in {time.perf_counter() - t0:.1f} s; config {config}"
+    )
+    if build_only:
+        return 0
+    return _run(str(config), None)
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = _parser().parse_args(argv)
+    try:
+        if args.command == "demo":
+            return _demo(args.folder, args.customers, args.seed, args.build_only)
+        if args.command == "run":
+            return _run(args.config, args.output)
+        if args.command == "check":
+            return _check(args.config)
+        _parser().print_help()
+        return 2
+    except UserError as err:
+        print(f"churnlife: {err}", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("churnlife: interrupted; no output folder was changed.", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())
