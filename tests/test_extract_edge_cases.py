@@ -1,0 +1,204 @@
+"""The SQL extract on small hand-written logs whose answers are worked out by hand below.
+
+Tenure rules (DEVELOPERS.md): active on every day from start to end inclusive; exit instant =
+end date + 1 day; months are calendar months; a churn counts at ceil(exit), a censoring at
+floor(exit), entry at floor(entry).
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+
+import polars as pl
+import pytest
+
+from churnlife.errors import UserError
+from tests.logs import config_dict, extract, write_log
+
+M, A = "m", "a"
+
+
+@pytest.fixture()
+def spells(tmp_path):
+    events = [
+        # 1: began 2021-11-15, before the log (2022-01-01): late entry; cancels 2022-03-20.
+        (1, "2022-01-15 10:00", "renew", M, 10, None),
+        (1, "2022-02-15 10:00", "renew", M, 10, None),
+        (1, "2022-03-20 09:00", "cancel", M, 10, "price"),
+        # 2: failed charge on 03-01 recovered on 03-05 (inside 14 days): no churn; active at as-of.
+        (2, "2022-02-01 08:00", "start", M, 10, None),
+        (2, "2022-03-01 08:00", "fail", M, 10, None),
+        (2, "2022-03-05 08:00", "recover", M, 10, None),
+        # 3: failed charge on 04-10, never recovered: involuntary churn on 04-10.
+        (3, "2022-03-10 08:00", "start", M, 10, None),
+        (3, "2022-04-10 08:00", "fail", M, 10, None),
+        # 4: cancels, returns 60 days later (new spell); a cancel after as-of is ignored.
+        (4, "2022-01-05 08:00", "start", M, 10, None),
+        (4, "2022-01-20 08:00", "cancel", M, 10, "other"),
+        (4, "2022-03-21 08:00", "start", M, 10, None),
+        (4, "2023-01-01 08:00", "cancel", M, 10, None),
+        # 5: cancels and returns 9 days later: continuation of one spell; active at as-of.
+        (5, "2022-01-10 08:00", "start", A, 100, None),
+        (5, "2022-02-01 08:00", "cancel", A, 100, None),
+        (5, "2022-02-10 08:00", "start", A, 100, None),
+        # 6: failed charge 2022-06-25, grace runs past as-of (06-30): not yet churn, censored.
+        (6, "2022-05-25 08:00", "start", M, 10, None),
+        (6, "2022-06-25 08:00", "fail", M, 10, None),
+        # 7: exact duplicate rows, and a second start inside the open spell.
+        (7, "2022-02-14 08:00", "start", M, 10, None),
+        (7, "2022-02-14 08:00", "start", M, 10, None),
+        (7, "2022-03-01 08:00", "start", M, 10, None),
+        (7, "2022-04-13 23:00", "cancel", M, 10, "other"),
+        # 8: cancels on the day it starts: one day of tenure, churn in month 1.
+        (8, "2022-06-01 12:00", "start", M, 10, None),
+        (8, "2022-06-01 18:00", "cancel", M, 10, "other"),
+    ]
+    customers = [
+        (1, "2021-11-15", "web"),
+        (2, "2022-02-01", "web"),
+        (3, "2022-03-10", "ads"),
+        (4, "2022-01-05", "ads"),
+        (5, "2022-01-10", "web"),
+        (6, "2022-05-25", "web"),
+        (7, "2022-02-14", "ads"),
+        (8, "2022-06-01", "ads"),
+    ]
+    write_log(tmp_path, events, customers)
+    ex = extract(tmp_path, config_dict(cohorts={"by": ["plan"]}))
+    return ex, ex.spells()
+
+
+def _row(spells: pl.DataFrame, cid: int, n: int = 1) -> dict:
+    rows = spells.filter((pl.col("customer_id") == cid) & (pl.col("spell_number") == n))
+    assert rows.height == 1
+    return rows.to_dicts()[0]
+
+
+def test_late_entrant(spells):
+    _, s = spells
+    r = _row(s, 1)
+    assert r["late_entry"] and r["start_date"] == dt.date(2021, 11, 15)
+    # entry: 1 whole month (to 12-15) + 17 of 31 days to 01-01; exit 03-21: 4 months + 6/31.
+    assert r["entry_exact"] == pytest.approx(1 + 17 / 31)
+    assert r["exit_exact"] == pytest.approx(4 + 6 / 31)
+    assert (r["entry_t"], r["exit_t"], r["churned"], r["cause"]) == (1, 5, True, "voluntary")
+    assert r["cancel_reason"] == "price"
+
+
+def test_recovered_failure_is_not_churn(spells):
+    _, s = spells
+    r = _row(s, 2)
+    assert not r["churned"] and r["end_date"] is None
+    assert (r["entry_t"], r["exit_t"]) == (0, 5)  # censored at as-of: 07-01 is 5 whole months
+
+
+def test_unrecovered_failure_is_involuntary_churn(spells):
+    _, s = spells
+    r = _row(s, 3)
+    assert r["churned"] and r["cause"] == "involuntary" and r["end_date"] == dt.date(2022, 4, 10)
+    # active through 04-10, the anniversary: 1 month + 1/30 day, so churn counts in month 2.
+    assert r["exit_exact"] == pytest.approx(1 + 1 / 30) and r["exit_t"] == 2
+
+
+def test_reactivation_after_long_gap_is_a_new_spell(spells):
+    _, s = spells
+    first, second = _row(s, 4, 1), _row(s, 4, 2)
+    assert first["churned"] and first["exit_t"] == 1
+    assert second["start_date"] == dt.date(2022, 3, 21) and not second["churned"]  # 2023 ignored
+    assert s.filter(pl.col("customer_id") == 4).height == 2
+
+
+def test_short_gap_continues_the_spell(spells):
+    _, s = spells
+    r = _row(s, 5)
+    assert s.filter(pl.col("customer_id") == 5).height == 1
+    assert r["start_date"] == dt.date(2022, 1, 10) and not r["churned"]
+
+
+def test_failure_still_in_grace_at_as_of_is_censored(spells):
+    _, s = spells
+    r = _row(s, 6)
+    assert not r["churned"] and r["exit_t"] == 1
+
+
+def test_duplicates_and_second_start(spells):
+    ex, s = spells
+    r = _row(s, 7)
+    assert s.filter(pl.col("customer_id") == 7).height == 1
+    assert r["start_date"] == dt.date(2022, 2, 14) and r["end_date"] == dt.date(2022, 4, 13)
+    assert r["exit_t"] == 2  # through 04-13 = 1 month + 28/31 days → month 2
+    assert ex.summary["n_duplicate_rows"] == 1
+
+
+def test_same_day_cancel_is_one_day(tmp_path, spells):
+    _, s = spells
+    r = _row(s, 8)
+    assert r["exit_exact"] == pytest.approx(1 / 30) and r["exit_t"] == 1 and r["churned"]
+
+
+def test_events_after_as_of_are_ignored(spells):
+    ex, _ = spells
+    assert ex.summary["n_after_as_of"] == 1
+
+
+def test_counts_by_hand(spells):
+    ex, _ = spells
+    m = ex.counts.filter(pl.col("plan") == M).sort("tenure")
+    # Monthly spells: 1 (late, entry 1, churn 5), 2 (censored 5), 3 (churn 2), 4a (churn 1),
+    # 4b (censored 3), 6 (censored 1), 7 (churn 2), 8 (churn 1).
+    by_t = {r["tenure"]: r for r in m.to_dicts()}
+    assert by_t[0]["entered"] == 7 and by_t[1]["entered"] == 1
+    assert by_t[1]["at_risk"] == 7 and by_t[1]["churned"] == 2 and by_t[1]["censored"] == 1
+    assert by_t[2]["at_risk"] == 5 and by_t[2]["churned"] == 2
+    assert by_t[2]["churned_involuntary"] == 1 and by_t[2]["churned_voluntary"] == 1
+    assert by_t[3]["at_risk"] == 3 and by_t[3]["censored"] == 1
+    assert by_t[5]["at_risk"] == 2 and by_t[5]["churned"] == 1 and by_t[5]["censored"] == 1
+
+
+@pytest.mark.parametrize(
+    ("unit", "exit_exact"),
+    [("days", 47.0), ("weeks", 47 / 7)],
+)
+def test_other_units(tmp_path, unit, exit_exact):
+    write_log(
+        tmp_path,
+        [(1, "2022-02-01 08:00", "start", M, 10, None), (1, "2022-03-19 08:00", "cancel", M, 10, None)],
+        [(1, "2022-02-01", "web")],
+    )
+    r = extract(tmp_path, config_dict(tenure={"unit": unit})).spells().to_dicts()[0]
+    assert r["exit_exact"] == pytest.approx(exit_exact)  # 02-01 .. 03-19 inclusive = 47 days
+
+
+def test_periods_unit_uses_plan_length(tmp_path):
+    write_log(
+        tmp_path,
+        [(1, "2022-01-10 08:00", "start", A, 100, None), (1, "2022-04-09 08:00", "cancel", A, 100, None)],
+        [(1, "2022-01-10", "web")],
+    )
+    cfg = config_dict(tenure={"unit": "periods", "period_months": {A: 12}})
+    r = extract(tmp_path, cfg).spells().to_dicts()[0]
+    assert r["exit_exact"] == pytest.approx(3 / 12) and r["exit_t"] == 1
+
+
+def test_unknown_event_code_stops_the_run(tmp_path):
+    write_log(tmp_path, [(1, "2022-02-01 08:00", "begin", M, 10, None)], [(1, "2022-02-01", "web")])
+    with pytest.raises(UserError, match='unknown event codes in the log: "begin"'):
+        extract(tmp_path, config_dict())
+
+
+def test_missing_column_is_named(tmp_path):
+    write_log(tmp_path, [(1, "2022-02-01 08:00", "start", M, 10, None)], [(1, "2022-02-01", "web")])
+    cfg = config_dict(columns={"event_time": "event_ts"})
+    with pytest.raises(UserError, match='event_time = "event_ts" is not a column'):
+        extract(tmp_path, cfg)
+
+
+def test_source_file_is_unchanged(tmp_path):
+    import hashlib
+
+    path = write_log(
+        tmp_path, [(1, "2022-02-01 08:00", "start", M, 10, None)], [(1, "2022-02-01", "web")]
+    )
+    before = hashlib.sha256(path.read_bytes()).hexdigest()
+    extract(tmp_path, config_dict()).spells()
+    assert hashlib.sha256(path.read_bytes()).hexdigest() == before
