@@ -18,9 +18,12 @@ from churnlife import __version__
 from churnlife.config import Config
 from churnlife.extract import Extract, run_extract
 from churnlife.km import KaplanMeierResult, kaplan_meier
+from churnlife.notes import Note, collect, json_safe, km_notes, unexplained_values
 from churnlife.outputs import atomic_folder
+from churnlife.quality import anomaly_table
 from churnlife.report import Section, charts_in, render
 from churnlife.sections.overview import cautions_section, data_section, settings_section
+from churnlife.sections.quality import notes_section, quality_section
 from churnlife.sections.retention import retention_section
 from churnlife.source import open_source
 
@@ -34,6 +37,7 @@ class Analysis:
     km: KaplanMeierResult
     sections: list[Section] = field(default_factory=list)
     tables: dict[str, pl.DataFrame] = field(default_factory=dict)
+    notes: list[Note] = field(default_factory=list)  # warnings for the reader (churnlife.notes)
 
     @property
     def counts(self) -> pl.DataFrame:
@@ -47,6 +51,7 @@ class Analysis:
             "settings": self.config.summary(),
             "data": {k: _plain(v) for k, v in self.extract.summary.items()},
             "median_tenure": {k: (None if v != v else v) for k, v in medians.items()},
+            "notes": [n.as_dict() for n in self.notes],
         }
 
 
@@ -69,13 +74,24 @@ def analyse(config: Config) -> Analysis:
         "km": km.to_polars(),
         "retention_at": km.retention_at(config.retention_at),
         "median_tenure": km.medians_table(),
+        "data_quality": anomaly_table(extract.summary),
     }
-    analysis.sections = [
+    results = [
         settings_section(config),
         data_section(extract.summary),
+        quality_section(extract.summary),
         retention_section(km, config.tenure_unit, config.retention_at),
-        cautions_section(config),
     ]
+    # Every NaN in a table or chart gets a note (churnlife.notes): known ones first, then a
+    # generic warning for anything no note explains.
+    notes = collect(km_notes(km, config.tenure_unit))
+    specs = {c.name: c.chart.to_dict() for c in charts_in(results)}
+    notes = collect(
+        notes,
+        unexplained_values(analysis.tables, specs, notes, {"retention_curves": "km"}),
+    )
+    analysis.notes = notes
+    analysis.sections = [*results[:3], notes_section(notes), *results[3:], cautions_section(config)]
     return analysis
 
 
@@ -90,7 +106,7 @@ def write_outputs(analysis: Analysis, folder: Path | None = None) -> Path:
         for name, frame in analysis.tables.items():
             out.table(name, frame)
         for chart in charts_in(analysis.sections):
-            spec = chart.chart.to_dict()
+            spec = json_safe(chart.chart.to_dict())
             out.text(f"{chart.name}.vl.json", json.dumps(spec))
             out.text(f"{chart.name}.svg", vlc.vegalite_to_svg(spec))
         out.text("summary.json", json.dumps(analysis.summary(), indent=2))
