@@ -54,8 +54,8 @@ def atomic_folder(target: Path) -> Iterator[OutputFolder]:
         ) from None
     except OSError as err:
         raise UserError(
-            f"cannot write the output folder {target}: {err.strerror or err}. Choose a folder you can "
-            "write to with --output (or [output] folder in the config)."
+            f"cannot write the output folder {target}: {err.strerror or err}. Choose a folder "
+            "you can write to with --output (or [output] folder in the config)."
         ) from None
     if target.exists() and not target.is_dir():
         shutil.rmtree(tmp, ignore_errors=True)

@@ -1,9 +1,9 @@
 """Builders for the bad-input corpus (tests/test_bad_input.py): each case is a small log or config
 written into a folder, with what churnlife must do about it.
 
-A case either must **stop** (exit 2, one message naming the problem and the fix) or must **run** with
-the anomaly handled and counted (``counts``: keys of summary.json's "data" that must hold these
-values). The healthy log below is the starting point; each case changes one thing.
+A case either must **stop** (exit 2, one message naming the problem and the fix) or must **run**
+with the anomaly handled and counted (``counts``: keys of summary.json's "data" that must hold
+these values). The healthy log below is the starting point; each case changes one thing.
 """
 
 from __future__ import annotations
@@ -536,7 +536,7 @@ HANDLED_CASES: list[Case] = [
          stop=False, counts={"n_censored": 5, "n_voluntary": 0, "n_involuntary": 0},
          notes=("No churn was observed", "Median tenure not reached")),
     Case("cohort-without-churn",
-         log(HEALTHY_EVENTS[:8] + [HEALTHY_EVENTS[8], HEALTHY_EVENTS[12]],
+         log([*HEALTHY_EVENTS[:8], HEALTHY_EVENTS[8], HEALTHY_EVENTS[12]],
              cfg=config(cohorts={"by": ["plan"]})),
          stop=False, counts={"n_spells": 5}, notes=("No churn was observed",)),
     Case("dates-not-timestamps",

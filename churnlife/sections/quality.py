@@ -10,6 +10,9 @@ from churnlife.quality import anomaly_table
 from churnlife.report import Section, Table, Text, esc
 
 
+_NOTE_STYLE = "border-color:#1f6f78;background:#eef5f5"
+
+
 def quality_section(summary: dict[str, Any]) -> Section:
     table = anomaly_table(summary)
     found = int(table["count"].sum())
@@ -45,7 +48,7 @@ def notes_section(notes: list[Note]) -> Section:
             who = f"<strong>{esc(n.cohort)}</strong>: " if n.cohort else ""
             label = "Warning" if n.level == "warning" else "Note"
             # warnings in the amber caution style; reading notes in the report's teal
-            style = "" if n.level == "warning" else ' style="border-color:#1f6f78;background:#eef5f5"'
+            style = "" if n.level == "warning" else f' style="{_NOTE_STYLE}"'
             items.append(f'<div class="caution"{style}><em>{label}.</em> {who}{esc(n.text)}</div>')
         body = "".join(items)
     n_warn = sum(n.level == "warning" for n in notes)
