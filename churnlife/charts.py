@@ -66,10 +66,14 @@ def retention_curves(km: KaplanMeierResult, unit: str, title: str | None = None)
         x=alt.X("tenure:Q", title=f"Tenure ({unit})", scale=alt.Scale(nice=False)),
         color=colour,
     )
-    pct = int(round(km.confidence * 100))
+    pct = round(km.confidence * 100)
     band = base.mark_area(opacity=0.16, interpolate="step-after").encode(
-        y=alt.Y("lower:Q", title="Share still subscribed", scale=alt.Scale(domain=[0, 1]),
-                axis=alt.Axis(format="%")),
+        y=alt.Y(
+            "lower:Q",
+            title="Share still subscribed",
+            scale=alt.Scale(domain=[0, 1]),
+            axis=alt.Axis(format="%"),
+        ),
         y2="upper:Q",
     )
     line = base.mark_line(interpolate="step-after", strokeWidth=2).encode(

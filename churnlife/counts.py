@@ -55,9 +55,7 @@ def counts_from_durations(
     exits = subjects.group_by("cohort", pl.col("exit").alias("tenure")).agg(
         pl.col("churned").sum().alias("churned"),
         (pl.col("churned") & (pl.col("cause") == "voluntary")).sum().alias("churned_voluntary"),
-        (pl.col("churned") & (pl.col("cause") == "involuntary"))
-        .sum()
-        .alias("churned_involuntary"),
+        (pl.col("churned") & (pl.col("cause") == "involuntary")).sum().alias("churned_involuntary"),
         (~pl.col("churned")).sum().alias("censored"),
     )
     table = (
@@ -67,7 +65,10 @@ def counts_from_durations(
     )
     leaving = pl.col("churned") + pl.col("censored")
     return table.with_columns(
-        (pl.col("entered") - leaving).cum_sum().shift(1, fill_value=0).over("cohort")
+        (pl.col("entered") - leaving)
+        .cum_sum()
+        .shift(1, fill_value=0)
+        .over("cohort")
         .alias("at_risk")
     ).select(
         "cohort",

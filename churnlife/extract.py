@@ -12,6 +12,7 @@ import re
 from dataclasses import dataclass
 from functools import cache
 from importlib import resources
+from itertools import pairwise
 from typing import Any
 
 import polars as pl
@@ -134,7 +135,7 @@ def _price_band_expr(config: Config) -> str:
 
     # Edges come from validated numbers in the config, so they are safe to write as literals.
     whens = [f"WHEN s.price < {edges[0]!r} THEN 'under {money(edges[0])}'"]
-    for lo, hi in zip(edges, edges[1:], strict=False):
+    for lo, hi in pairwise(edges):
         whens.append(f"WHEN s.price < {hi!r} THEN '{money(lo)} to under {money(hi)}'")
     whens.append(f"WHEN s.price >= {edges[-1]!r} THEN '{money(edges[-1])} and over'")
     return "CASE " + " ".join(whens) + " END"

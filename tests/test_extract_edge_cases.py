@@ -162,7 +162,10 @@ def test_counts_by_hand(spells):
 def test_other_units(tmp_path, unit, exit_exact):
     write_log(
         tmp_path,
-        [(1, "2022-02-01 08:00", "start", M, 10, None), (1, "2022-03-19 08:00", "cancel", M, 10, None)],
+        [
+            (1, "2022-02-01 08:00", "start", M, 10, None),
+            (1, "2022-03-19 08:00", "cancel", M, 10, None),
+        ],
         [(1, "2022-02-01", "web")],
     )
     r = extract(tmp_path, config_dict(tenure={"unit": unit})).spells().to_dicts()[0]
@@ -172,7 +175,10 @@ def test_other_units(tmp_path, unit, exit_exact):
 def test_periods_unit_uses_plan_length(tmp_path):
     write_log(
         tmp_path,
-        [(1, "2022-01-10 08:00", "start", A, 100, None), (1, "2022-04-09 08:00", "cancel", A, 100, None)],
+        [
+            (1, "2022-01-10 08:00", "start", A, 100, None),
+            (1, "2022-04-09 08:00", "cancel", A, 100, None),
+        ],
         [(1, "2022-01-10", "web")],
     )
     cfg = config_dict(tenure={"unit": "periods", "period_months": {A: 12}})

@@ -10,7 +10,7 @@ from churnlife.report import Chart, Section, Table
 
 
 def retention_section(km: KaplanMeierResult, unit: str, retention_at: tuple[int, ...]) -> Section:
-    pct = int(round(km.confidence * 100))
+    pct = round(km.confidence * 100)
     table = km.retention_at(retention_at)
     wide = table.with_columns(
         pl.format(
