@@ -349,7 +349,7 @@ def cox_fit(
         counts, covariates, numeric, strata, reference or {}, _log_tenure_terms
     )
     k = len(names)
-    beta, ll, g, h, n_iter, ok = _newton(blocks, k, ties)
+    beta, ll, _, h, n_iter, ok = _newton(blocks, k, ties)
     info = -h
     try:
         cov = np.linalg.inv(info)

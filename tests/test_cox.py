@@ -3,8 +3,8 @@
 Sources:
 * 6-MP (Freireich et al. 1963), covariate placebo = 1: Breslow coef 1.509, SE 0.410 (Kleinbaum &
   Klein 2012 ch. 3, Stata output) and Efron coef 1.572, SE 0.412, LR 16.4, Wald 14.5, score 17.2
-  (Venables & Ripley, MASS, coxph on gehan) — recalled from memory; the checks use the full-precision
-  statsmodels values in ../shared/reference/values.json.
+  (Venables & Ripley, MASS, coxph on gehan) — recalled from memory; the checks use the
+  full-precision statsmodels values in ../shared/reference/values.json.
 * left_truncation_example and heart_statsmodels: statsmodels PHReg values in values.json.
 * The demo's per-customer spells: statsmodels PHReg(time, exog, status, entry=, strata=, ties=).
 """
