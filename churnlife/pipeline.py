@@ -20,6 +20,7 @@ from churnlife.extract import Extract, run_extract
 from churnlife.km import KaplanMeierResult, kaplan_meier
 from churnlife.outputs import atomic_folder
 from churnlife.report import Section, charts_in, render
+from churnlife.sections.comparison import Comparison, compare_cohorts, comparison_section
 from churnlife.sections.overview import cautions_section, data_section, settings_section
 from churnlife.sections.retention import retention_section
 from churnlife.source import open_source
@@ -32,6 +33,7 @@ class Analysis:
     config: Config
     extract: Extract
     km: KaplanMeierResult
+    comparison: Comparison | None = None
     sections: list[Section] = field(default_factory=list)
     tables: dict[str, pl.DataFrame] = field(default_factory=dict)
 
@@ -63,17 +65,24 @@ def analyse(config: Config) -> Analysis:
     source = open_source(config)
     extract = run_extract(config, source)
     km = kaplan_meier(extract.counts, config.confidence, config.interval)
-    analysis = Analysis(config, extract, km)
+    comparison = compare_cohorts(extract.counts, config.cohorts)
+    analysis = Analysis(config, extract, km, comparison)
     analysis.tables = {
         "counts": extract.counts,
         "km": km.to_polars(),
         "retention_at": km.retention_at(config.retention_at),
         "median_tenure": km.medians_table(),
     }
+    if comparison is not None:
+        analysis.tables["cohort_tests"] = comparison.tests_table()
+        analysis.tables["cohort_pairs"] = comparison.pairwise
+        if comparison.cox is not None:
+            analysis.tables["hazard_ratios"] = comparison.cox.to_polars()
     analysis.sections = [
         settings_section(config),
         data_section(extract.summary),
         retention_section(km, config.tenure_unit, config.retention_at),
+        comparison_section(comparison),
         cautions_section(config),
     ]
     return analysis
