@@ -91,7 +91,7 @@ def _phreg(spells: pl.DataFrame, ties: str, strata: str | None = None):
     model = PHReg(
         s["exit_t"].to_numpy().astype(float),
         np.column_stack(cols),
-        status=s["churned"].to_numpy().astype(float),
+        status=s["churn_counted"].to_numpy().astype(float),
         # PHReg keeps a subject whose entry equals an event time in that risk set (entry <= t;
         # checked here: shifting entries by -0.5 leaves its fit unchanged). churnlife's rule is
         # entry < t (DEVELOPERS.md, as SurvfuncRight), so entries move half a tenure later.
