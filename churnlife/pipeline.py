@@ -65,7 +65,9 @@ def analyse(config: Config) -> Analysis:
     source = open_source(config)
     extract = run_extract(config, source)
     km = kaplan_meier(extract.counts, config.confidence, config.interval)
-    comparison = compare_cohorts(extract.counts, config.cohorts)
+    comparison = compare_cohorts(
+        extract.counts, config.cohorts, horizon=float(max(config.retention_at))
+    )
     analysis = Analysis(config, extract, km, comparison)
     analysis.tables = {
         "counts": extract.counts,
@@ -78,6 +80,8 @@ def analyse(config: Config) -> Analysis:
         analysis.tables["cohort_pairs"] = comparison.pairwise
         if comparison.cox is not None:
             analysis.tables["hazard_ratios"] = comparison.cox.to_polars()
+        if comparison.restricted is not None:
+            analysis.tables["restricted_mean"] = comparison.restricted.to_polars()
     analysis.sections = [
         settings_section(config),
         data_section(extract.summary),

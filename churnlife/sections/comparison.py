@@ -9,6 +9,7 @@ import polars as pl
 
 from churnlife.cox import CoxResult, ProportionalityCheck, cox_fit, proportionality_check
 from churnlife.logrank import LogRankResult, logrank_test, pairwise_tests
+from churnlife.nelson_aalen import RestrictedMean, restricted_mean
 from churnlife.report import Section, Table, Text, esc
 
 
@@ -21,6 +22,7 @@ class Comparison:
     pairwise: pl.DataFrame
     cox: CoxResult | None
     ph_check: ProportionalityCheck | None
+    restricted: RestrictedMean | None = None
 
     def tests_table(self) -> pl.DataFrame:
         rows = (self.overall, *self.weighted)
@@ -39,9 +41,11 @@ class Comparison:
         )
 
 
-def compare_cohorts(counts: pl.DataFrame, cohorts: tuple[str, ...]) -> Comparison | None:
-    """Tests across the run's cohorts, and a Cox model with the cohort attributes as covariates
-    (None when there is a single cohort)."""
+def compare_cohorts(
+    counts: pl.DataFrame, cohorts: tuple[str, ...], horizon: float | None = None
+) -> Comparison | None:
+    """Tests across the run's cohorts, a Cox model with the cohort attributes as covariates and
+    the restricted mean tenure to ``horizon`` (None when there is a single cohort)."""
     if counts["cohort"].n_unique() < 2:
         return None
     overall = logrank_test(counts)
@@ -53,7 +57,8 @@ def compare_cohorts(counts: pl.DataFrame, cohorts: tuple[str, ...]) -> Compariso
     if cohorts:
         cox = cox_fit(counts, list(cohorts))
         check = proportionality_check(cox, counts, list(cohorts))
-    return Comparison(overall, weighted, pairwise_tests(counts), cox, check)
+    rm = restricted_mean(counts, horizon) if horizon else None
+    return Comparison(overall, weighted, pairwise_tests(counts), cox, check, rm)
 
 
 def comparison_section(comp: Comparison | None) -> Section:
@@ -87,6 +92,19 @@ def comparison_section(comp: Comparison | None) -> Section:
                 f"with {pct}% Wald intervals. Above 1: churns faster than the reference.",
                 csv_name="hazard_ratios.csv",
                 formats={"hazard_ratio": ".3f", "hr_lower": ".3f", "hr_upper": ".3f", "p": ".3g"},
+            )
+        )
+    if comp.restricted is not None:
+        rm = comp.restricted
+        blocks.append(
+            Table(
+                rm.to_polars(),
+                caption=f"Restricted mean tenure: expected tenure within the first {rm.horizon:g} "
+                "units, the area under each retention curve, with its interval (Klein & "
+                "Moeschberger's variance). observed_to_horizon false: the cohort was not followed "
+                "that long and its value is not comparable.",
+                csv_name="restricted_mean.csv",
+                formats={"restricted_mean": ".2f", "se": ".3f", "lower": ".2f", "upper": ".2f"},
             )
         )
     if comp.ph_check is not None:
