@@ -1,3 +1,5 @@
-from churnlife.cli import main
 import sys
+
+from churnlife.cli import main
+
 sys.exit(main())

@@ -1,8 +1,8 @@
 """Read and validate a churnlife TOML config before any query runs.
 
 Every key is documented in README.md ("Config reference"); the demo's config, demo/churnlife.toml,
-is the worked example. Validation is strict: an unknown key, a wrong type or an impossible value stops
-the run with a message naming the key and the fix (``UserError``).
+is the worked example. Validation is strict: an unknown key, a wrong type or an impossible
+value stops the run with a message naming the key and the fix (``UserError``).
 """
 
 from __future__ import annotations

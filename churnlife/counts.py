@@ -12,6 +12,16 @@ import numpy as np
 import polars as pl
 
 
+def _labels(name: str, values: object, n: int, default: str | None) -> pl.Series:
+    """A string column from a polars Series, numpy array or list (or a constant)."""
+    if values is None:
+        return pl.repeat(default, n, dtype=pl.String, eager=True).alias(name)
+    series = values if isinstance(values, pl.Series) else pl.Series(name, values, strict=False)
+    if series.len() != n:
+        raise ValueError(f"{name} must have one value per subject")
+    return series.cast(pl.String).alias(name)
+
+
 def counts_from_durations(
     exit: np.ndarray | list,
     churned: np.ndarray | list,
@@ -43,11 +53,8 @@ def counts_from_durations(
         raise ValueError("exit and entry must be finite")
     if np.any(e > x):
         raise ValueError("entry must not be after exit")
-    c = np.full(x.shape, "all", dtype=object) if cohort is None else np.asarray(cohort, object)
-    k = np.full(x.shape, None, dtype=object) if cause is None else np.asarray(cause, object)
-    subjects = pl.DataFrame(
-        {"cohort": c.astype(str), "entry": e, "exit": x, "churned": d, "cause": k},
-        schema_overrides={"cause": pl.String},
+    subjects = pl.DataFrame({"entry": e, "exit": x, "churned": d}).with_columns(
+        _labels("cohort", cohort, x.size, "all"), _labels("cause", cause, x.size, None)
     )
     entries = subjects.group_by("cohort", pl.col("entry").alias("tenure")).agg(
         pl.len().alias("entered")
@@ -55,9 +62,7 @@ def counts_from_durations(
     exits = subjects.group_by("cohort", pl.col("exit").alias("tenure")).agg(
         pl.col("churned").sum().alias("churned"),
         (pl.col("churned") & (pl.col("cause") == "voluntary")).sum().alias("churned_voluntary"),
-        (pl.col("churned") & (pl.col("cause") == "involuntary"))
-        .sum()
-        .alias("churned_involuntary"),
+        (pl.col("churned") & (pl.col("cause") == "involuntary")).sum().alias("churned_involuntary"),
         (~pl.col("churned")).sum().alias("censored"),
     )
     table = (
@@ -67,7 +72,10 @@ def counts_from_durations(
     )
     leaving = pl.col("churned") + pl.col("censored")
     return table.with_columns(
-        (pl.col("entered") - leaving).cum_sum().shift(1, fill_value=0).over("cohort")
+        (pl.col("entered") - leaving)
+        .cum_sum()
+        .shift(1, fill_value=0)
+        .over("cohort")
         .alias("at_risk")
     ).select(
         "cohort",

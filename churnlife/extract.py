@@ -12,6 +12,7 @@ import re
 from dataclasses import dataclass
 from functools import cache
 from importlib import resources
+from itertools import pairwise
 from typing import Any
 
 import polars as pl
@@ -140,7 +141,7 @@ def _price_band_expr(config: Config) -> str:
     # A price of zero or less is no price per period: no band (README.md, "Data quality").
     whens = ["WHEN s.price <= 0 THEN NULL"]
     whens.append(f"WHEN s.price < {edges[0]!r} THEN 'under {money(edges[0])}'")
-    for lo, hi in zip(edges, edges[1:], strict=False):
+    for lo, hi in pairwise(edges):
         whens.append(f"WHEN s.price < {hi!r} THEN '{money(lo)} to under {money(hi)}'")
     whens.append(f"WHEN s.price >= {edges[-1]!r} THEN '{money(edges[-1])} and over'")
     return "CASE " + " ".join(whens) + " END"

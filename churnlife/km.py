@@ -213,18 +213,21 @@ def _interval(
 
 
 def _median(curve: CohortCurve, z: float) -> Median:
-    """Median tenure: the first tenure with S(t) <= 0.5; interval by inverting the log-log test
-    at the churn tenures (Brookmeyer & Crowley 1982, with the complementary log-log transform)."""
+    """Median tenure: the first tenure with S(t) <= 0.5. Its interval reads the pointwise band:
+    from the first tenure whose lower limit is at or below 0.5 to the first whose upper limit is
+    (Brookmeyer & Crowley 1982, applied to the chosen band); "not reached" is +inf."""
     events = curve.churned > 0
-    t, s, gw = curve.tenure[events], curve.survival[events], curve.greenwood[events]
-    below = np.flatnonzero(s <= 0.5)
-    median = float(t[below[0]]) if below.size else float("nan")
-    with np.errstate(divide="ignore", invalid="ignore"):
-        se_s = s * np.sqrt(gw)
-        r = (np.log(-np.log(s)) - np.log(-np.log(0.5))) / (-se_s / (s * np.log(s)))
-    inside = np.flatnonzero(np.abs(r) <= z)
-    if inside.size == 0:
-        return Median(curve.cohort, median, float("nan"), float("nan"))
-    lower = float(t[inside[0]])
-    upper = float("inf") if inside[-1] == len(t) - 1 else float(t[inside[-1] + 1])
-    return Median(curve.cohort, median, lower, upper)
+    t = curve.tenure[events]
+    s, lo, hi = curve.survival[events], curve.lower[events], curve.upper[events]
+
+    def first(mask: np.ndarray, missing: float) -> float:
+        hit = np.flatnonzero(mask)
+        return float(t[hit[0]]) if hit.size else missing
+
+    nan = float("nan")
+    return Median(
+        curve.cohort,
+        first(s <= 0.5, nan),
+        first(lo <= 0.5, nan),
+        first(np.nan_to_num(hi, nan=0.0) <= 0.5, float("inf")),
+    )

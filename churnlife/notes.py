@@ -169,6 +169,8 @@ def fit_notes(
     information: np.ndarray | None = None,
     cohort: str | None = None,
     rcond: float = 1e-10,
+    covariance: np.ndarray | None = None,
+    table: str | None = None,
 ) -> list[Note]:
     """Warnings a model fit owes its reader.
 
@@ -181,8 +183,12 @@ def fit_notes(
     information : the observed information matrix (negative Hessian of the log-likelihood) at the
         estimate; a singular or non-positive-definite one means the SEs cannot be trusted.
     rcond : reciprocal condition number below which the matrix counts as singular.
+    covariance : the estimates' covariance matrix, when the fit reports that instead; non-finite
+        entries mean the information matrix could not be inverted (singular).
+    table : the output table holding the fit's estimates; the notes cover its empty values.
     """
     out: list[Note] = []
+    covers = (f"{table}.*",) if table else ()
     if not converged:
         reason = f" (the optimiser said: {message.strip().rstrip('.')})" if message.strip() else ""
         out.append(
@@ -191,6 +197,7 @@ def fit_notes(
                 f"The {model} fit did not converge{reason}. Its estimates and intervals are not "
                 "reliable; compare with the Kaplan–Meier curve before using it.",
                 cohort,
+                covers,
             )
         )
     if at_boundary:
@@ -198,24 +205,40 @@ def fit_notes(
         out.append(
             warning(
                 "fit",
-                f"The {model} fit hit a boundary of the allowed range for {names}. The data may "
-                "fit a simpler model; intervals near a boundary are not reliable.",
+                f"The {model} fit hit a boundary for {names}: the estimate sits on the edge of "
+                "its allowed range or runs off towards infinity (for example when a cohort has "
+                "no churn at all). Those estimates and their intervals are not meaningful; the "
+                "data may fit a simpler model.",
                 cohort,
+                covers,
             )
         )
+    problem = ""
     if information is not None:
         problem = information_problem(information, rcond)
-        if problem:
-            out.append(
-                warning(
-                    "fit",
-                    f"The {model} fit's information matrix is {problem}, so its standard errors "
-                    "and intervals cannot be computed reliably (some parameters are not "
-                    "identified by these data).",
-                    cohort,
-                )
+    elif covariance is not None and not np.all(np.isfinite(np.asarray(covariance, float))):
+        problem = "singular"
+    if problem:
+        out.append(
+            warning(
+                "fit",
+                f"The {model} fit's information matrix is {problem}, so its standard errors "
+                "and intervals cannot be computed reliably (some parameters are not "
+                "identified by these data).",
+                cohort,
+                covers,
             )
+        )
     return out
+
+
+def runaway(names: Sequence[str], se: np.ndarray, limit: float = 50.0) -> list[str]:
+    """Names of estimates whose standard error is not finite or above ``limit`` (on the scale
+    the model estimates on, e.g. log hazard ratios): the likelihood kept rising towards infinity
+    in that direction (a monotone likelihood), so the optimiser stopped somewhere arbitrary. An
+    SE of 50 on a log scale means an interval spanning a factor of e^200: no information."""
+    s = np.asarray(se, dtype=float)
+    return [n for n, v in zip(names, s, strict=True) if not np.isfinite(v) or v > limit]
 
 
 def information_problem(information: np.ndarray, rcond: float = 1e-10) -> str:

@@ -18,10 +18,19 @@ from churnlife import __version__
 from churnlife.config import Config
 from churnlife.extract import Extract, run_extract
 from churnlife.km import KaplanMeierResult, kaplan_meier
-from churnlife.notes import Note, collect, json_safe, km_notes, unexplained_values
+from churnlife.notes import (
+    Note,
+    collect,
+    fit_notes,
+    json_safe,
+    km_notes,
+    runaway,
+    unexplained_values,
+)
 from churnlife.outputs import atomic_folder
 from churnlife.quality import anomaly_table
 from churnlife.report import Section, charts_in, render
+from churnlife.sections.comparison import Comparison, compare_cohorts, comparison_section
 from churnlife.sections.overview import cautions_section, data_section, settings_section
 from churnlife.sections.quality import notes_section, quality_section
 from churnlife.sections.retention import retention_section
@@ -35,6 +44,7 @@ class Analysis:
     config: Config
     extract: Extract
     km: KaplanMeierResult
+    comparison: Comparison | None = None
     sections: list[Section] = field(default_factory=list)
     tables: dict[str, pl.DataFrame] = field(default_factory=dict)
     notes: list[Note] = field(default_factory=list)  # warnings for the reader (churnlife.notes)
@@ -68,7 +78,10 @@ def analyse(config: Config) -> Analysis:
     source = open_source(config)
     extract = run_extract(config, source)
     km = kaplan_meier(extract.counts, config.confidence, config.interval)
-    analysis = Analysis(config, extract, km)
+    comparison = compare_cohorts(
+        extract.counts, config.cohorts, horizon=float(max(config.retention_at))
+    )
+    analysis = Analysis(config, extract, km, comparison)
     analysis.tables = {
         "counts": extract.counts,
         "km": km.to_polars(),
@@ -76,15 +89,32 @@ def analyse(config: Config) -> Analysis:
         "median_tenure": km.medians_table(),
         "data_quality": anomaly_table(extract.summary),
     }
+    if comparison is not None:
+        analysis.tables["cohort_tests"] = comparison.tests_table()
+        analysis.tables["cohort_pairs"] = comparison.pairwise
+        if comparison.cox is not None:
+            analysis.tables["hazard_ratios"] = comparison.cox.to_polars()
+        if comparison.restricted is not None:
+            analysis.tables["restricted_mean"] = comparison.restricted.to_polars()
     results = [
         settings_section(config),
         data_section(extract.summary),
         quality_section(extract.summary),
         retention_section(km, config.tenure_unit, config.retention_at),
+        comparison_section(comparison),
     ]
     # Every NaN in a table or chart gets a note (churnlife.notes): known ones first, then a
     # generic warning for anything no note explains.
-    notes = collect(km_notes(km, config.tenure_unit))
+    notes = km_notes(km, config.tenure_unit)
+    if comparison is not None and comparison.cox is not None:
+        cox = comparison.cox
+        notes += fit_notes(
+            "Cox",
+            cox.converged,
+            at_boundary=runaway(cox.names, cox.se),
+            covariance=cox.cov,
+            table="hazard_ratios",
+        )
     specs = {c.name: c.chart.to_dict() for c in charts_in(results)}
     notes = collect(
         notes,

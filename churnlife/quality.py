@@ -254,7 +254,8 @@ def count_anomalies(
             "spells": spells_relation,
         },
     )
-    counts = {k: int(v or 0) for k, v in source.query(sql, params).to_dicts()[0].items()}
+    row = source.query(sql, params).row(0, named=True)  # one row of counts
+    counts = {k: int(v or 0) for k, v in row.items()}
     if config.customer_columns_in == "customers":
         cust = fill(
             read_query("quality_customers"),
@@ -263,9 +264,8 @@ def count_anomalies(
                 "customer_id": source.quote(config.columns["customer_id"] or ""),
             },
         )
-        counts.update(
-            {k: int(v or 0) for k, v in source.query(cust, {}).to_dicts()[0].items()}
-        )
+        row = source.query(cust, {}).row(0, named=True)
+        counts.update({k: int(v or 0) for k, v in row.items()})
     return counts
 
 

@@ -74,7 +74,8 @@ th { background:#efe8d8; font-weight:600; }
 td:first-child, th:first-child { text-align:left; }
 .caption { font: 13px/1.4 system-ui, sans-serif; color:var(--muted); margin:2px 0 14px; }
 .caption a { color:var(--teal); }
-.caution { border-left:4px solid var(--amber); background:#fff6e0; padding:10px 16px; margin:12px 0; }
+.caution { border-left:4px solid var(--amber); background:#fff6e0; padding:10px 16px;
+           margin:12px 0; }
 .figure { margin:14px 0; }
 dl.params { display:grid; grid-template-columns: max-content auto; gap:2px 18px;
             font: 14px/1.5 system-ui, sans-serif; }
@@ -101,7 +102,9 @@ def table_html(t: Table) -> str:
     head = "".join(f"<th>{esc(c)}</th>" for c in shown.columns)
     rows = "".join(
         "<tr>"
-        + "".join(f"<td>{_fmt(v, t.formats.get(c))}</td>" for c, v in zip(shown.columns, r, strict=True))
+        + "".join(
+            f"<td>{_fmt(v, t.formats.get(c))}</td>" for c, v in zip(shown.columns, r, strict=True)
+        )
         + "</tr>"
         for r in shown.iter_rows()
     )
@@ -161,7 +164,7 @@ def render(
         "console.error(err); });\n}\n"
     )
     return (
-        "<!DOCTYPE html>\n<html lang=\"en\"><head><meta charset=\"utf-8\">"
+        '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
         f"<title>{esc(title)}</title><style>{_CSS}</style>"
         f"<script>{bundle}</script></head><body>"
         f'<header class="masthead"><h1>{esc(title)}</h1><p>{esc(subtitle)}</p></header>'

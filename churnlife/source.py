@@ -1,9 +1,9 @@
 """Connections to the engine that holds the event log, opened read-only.
 
-A ``Source`` runs SQL text with named parameters inside the engine and returns polars frames through
-Arrow. It also *stages* intermediate results (the spells) where the engine allows it without touching
-the user's data: DuckDB keeps them in its in-memory catalogue, never in the user's file. Engines that
-cannot stage (later: PostgreSQL in a read-only transaction) compose the SQL as a CTE instead.
+A ``Source`` runs SQL text with named parameters inside the engine and returns polars frames
+through Arrow. It also *stages* intermediate results (the spells) where the engine allows it without
+touching the user's data: DuckDB keeps them in its in-memory catalogue, never in the user's file.
+Engines that cannot stage (e.g. PostgreSQL in a read-only transaction) compose the SQL as a CTE.
 """
 
 from __future__ import annotations

@@ -28,8 +28,16 @@ def test_run_writes_the_output_folder(demo_folder, tmp_path):
     out = tmp_path / "out"
     proc = _run("run", "--config", str(demo_folder / "churnlife.toml"), "--output", str(out))
     assert proc.returncode == 0, proc.stderr
-    for name in ("report.html", "counts.csv", "counts.parquet", "km.csv", "retention_at.csv",
-                 "median_tenure.csv", "summary.json", "retention_curves.svg"):
+    for name in (
+        "report.html",
+        "counts.csv",
+        "counts.parquet",
+        "km.csv",
+        "retention_at.csv",
+        "median_tenure.csv",
+        "summary.json",
+        "retention_curves.svg",
+    ):
         assert (out / name).is_file(), name
     summary = json.loads((out / "summary.json").read_text())
     assert summary["data"]["n_spells"] > 0
@@ -38,6 +46,7 @@ def test_run_writes_the_output_folder(demo_folder, tmp_path):
     assert not re.search(r"""<(script|link|img)[^>]+(src|href)=["']?https?:""", html)
     assert "vegaEmbed" in html and "Retention by cohort" in html
     assert "Read with care" in html
+    assert "Are cohorts different?" in html and (out / "hazard_ratios.csv").is_file()
     # no temp folders left beside the output
     assert [p.name for p in tmp_path.iterdir()] == ["out"]
 
@@ -57,7 +66,10 @@ def test_bad_config_key_exits_2_with_hint(tmp_path, demo_folder):
     path.write_text(cfg)
     proc = _run("run", "--config", str(path), "--output", str(tmp_path / "out"))
     assert proc.returncode == 2
-    assert 'unknown config key "grace_dayz"' in proc.stderr and 'Did you mean "grace_days"' in proc.stderr
+    assert (
+        'unknown config key "grace_dayz"' in proc.stderr
+        and 'Did you mean "grace_days"' in proc.stderr
+    )
     assert "Traceback" not in proc.stderr
     assert not (tmp_path / "out").exists()
 

@@ -27,9 +27,7 @@ def _offenders() -> list[str]:
                 continue
             for node in ast.walk(func):
                 iters = []
-                if isinstance(node, ast.For):
-                    iters.append(node.iter)
-                elif isinstance(node, ast.comprehension):
+                if isinstance(node, ast.For | ast.comprehension):
                     iters.append(node.iter)
                 for it in iters:
                     for call in ast.walk(it):

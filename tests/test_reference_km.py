@@ -2,8 +2,9 @@
 
 Sources (values and tolerances from ../shared/reference/values.json, see its README):
 * Freireich et al. (1963) 6-MP data; KM, Greenwood SE and medians as printed in Kleinbaum & Klein
-  (2012) ch. 2 and Klein & Moeschberger (2003) §4.2 (recalled from memory; the checks use the values
-  recomputed with statsmodels SurvfuncRight and scipy.stats.ecdf, which agree with the printed digits).
+  (2012) ch. 2 and Klein & Moeschberger (2003) §4.2 (recalled from memory; the checks use the
+  values recomputed with statsmodels SurvfuncRight and scipy.stats.ecdf, which agree with the
+  printed digits).
 * left_truncation_example: statsmodels SurvfuncRight(time, event, entry=entry) values.
 """
 
@@ -68,7 +69,9 @@ def test_median_and_interval(reference, ref_values):
 def test_left_truncation_risk_sets(reference, ref_values):
     ref = ref_values["left_truncation_example"]["km_with_entry"]
     d = pl.read_csv(reference / "left_truncation_example.csv")
-    curve = kaplan_meier(counts_from_durations(d["time"], d["event"], entry=d["entry"])).curve("all")
+    curve = kaplan_meier(counts_from_durations(d["time"], d["event"], entry=d["entry"])).curve(
+        "all"
+    )
     at = np.isin(curve.tenure, ref["times"])
     np.testing.assert_array_equal(curve.at_risk[at], ref["n_risk"])
     np.testing.assert_allclose(curve.survival[at], ref["survival"], atol=ref["tol_abs"], rtol=0)
