@@ -122,6 +122,11 @@ CANCEL_REASON_MIX = {
     "other": 0.12,
 }
 DUPLICATE_RATE = 0.001
+# Two more anomalies of real logs, neither of which changes any spell: a cancellation recorded a
+# second time seconds later (a double click), and a renewal charge that fails minutes after the
+# cancellation (billing had not yet seen it). Both are written on the same day as the cancellation.
+REPEATED_CANCEL_RATE = 0.005
+CHARGE_AFTER_CANCEL_RATE = 0.003
 
 # --------------------------------------------------------------------------------------------
 # Internals: dates are int64 day numbers since 1970-01-01, times of day are seconds.
@@ -493,6 +498,30 @@ def _log_rows(sim: Simulation, rng: np.random.Generator) -> tuple[dict[str, np.n
     return {k: v[order] for k, v in rows.items()}, int(dup.size)
 
 
+def _add_anomalies(
+    rows: dict[str, np.ndarray], rng: np.random.Generator
+) -> tuple[dict[str, np.ndarray], dict[str, int]]:
+    """Repeated cancellations and charges failing after a cancellation (see the rates above)."""
+    cancel = np.flatnonzero(rows["kind"] == _K["cancelled"])
+    repeat = cancel[rng.random(cancel.size) < REPEATED_CANCEL_RATE]
+    stray = cancel[rng.random(cancel.size) < CHARGE_AFTER_CANCEL_RATE]
+    extra = []
+    for idx, kind, delay in (
+        (repeat, _K["cancelled"], (2, 120)),  # seconds later, same reason
+        (stray, _K["charge_failed"], (60, 1800)),
+    ):
+        new = {k: v[idx].copy() for k, v in rows.items()}
+        new["tod"] = np.minimum(new["tod"] + rng.integers(*delay, size=idx.size), 86_399)
+        new["kind"] = np.full(idx.size, kind, dtype=rows["kind"].dtype)
+        if kind != _K["cancelled"]:
+            new["reason"] = np.full(idx.size, -1, dtype=rows["reason"].dtype)
+        extra.append(new)
+    rows = {k: np.concatenate([v, *(e[k] for e in extra)]) for k, v in rows.items()}
+    order = np.lexsort((rows["kind"], rows["account"], rows["tod"], rows["day"]))
+    counts = {"repeated_cancellations": int(repeat.size), "charges_after_cancel": int(stray.size)}
+    return {k: v[order] for k, v in rows.items()}, counts
+
+
 def _write_database(path: Path, accounts: pl.DataFrame, events: pl.DataFrame) -> None:
     tmp = path.with_name(path.name + ".tmp")
     for p in (tmp, Path(str(tmp) + ".wal")):
@@ -625,7 +654,11 @@ def model_parameters() -> dict[str, Any]:
             "hazards_follow": "the spell's starting plan",
         },
         "cancel_reason_mix": CANCEL_REASON_MIX,
-        "anomalies": {"duplicate_row_rate": DUPLICATE_RATE},
+        "anomalies": {
+            "duplicate_row_rate": DUPLICATE_RATE,
+            "repeated_cancel_rate": REPEATED_CANCEL_RATE,
+            "charge_after_cancel_rate": CHARGE_AFTER_CANCEL_RATE,
+        },
     }
 
 
@@ -693,6 +726,7 @@ def build_demo(
     sim = simulate(n_customers, seed)
     rng = np.random.default_rng([seed, 1])  # the anomalies' own stream
     rows, n_dup = _log_rows(sim, rng)
+    rows, anomalies = _add_anomalies(rows, np.random.default_rng([seed, 2]))
     first_paid = _first_paid_on(sim)
 
     accounts = pl.DataFrame(
@@ -710,6 +744,7 @@ def build_demo(
     truth = model_parameters()
     truth["generator"] = {"n_customers": n_customers, "seed": seed}
     truth["counts"] = _counts(sim, rows, n_dup, first_paid)
+    truth["counts"].update(anomalies)
     truth_file = Path(truth_path) if truth_path is not None else path.parent / "truth.json"
     truth_file.write_text(json.dumps(truth, indent=2) + "\n")
 
