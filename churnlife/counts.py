@@ -16,6 +16,8 @@ def _labels(name: str, values: object, n: int, default: str | None) -> pl.Series
     """A string column from a polars Series, numpy array or list (or a constant)."""
     if values is None:
         return pl.repeat(default, n, dtype=pl.String, eager=True).alias(name)
+    if isinstance(values, np.ndarray) and values.dtype == object:
+        values = values.tolist()  # polars cannot type an object array that starts with None
     series = values if isinstance(values, pl.Series) else pl.Series(name, values, strict=False)
     if series.len() != n:
         raise ValueError(f"{name} must have one value per subject")
