@@ -266,6 +266,7 @@ def run_extract(config: Config, source: Source) -> Extract:
             )
         )
     if not summary["n_spells"]:
+        quality.explain_empty_window(config, summary)
         raise UserError(
             f"no subscription spells found between {config.log_start} and {config.as_of}. Check "
             "[window] (log_start, as_of) and that [event_codes] start lists your signup codes."

@@ -5,7 +5,8 @@ Two kinds of problems are found in a user's log (README.md, "Data quality"):
 * **Stops** (``check_log``, before any spell is formed): an empty table, rows without a customer id,
   time or kind (unless ``[rules] incomplete_rows = "drop"``), a column whose type or text cannot be
   read as a time / date / number, text times that mix values with and without a UTC offset,
-  customer ids of different types in the two tables, and a window that holds none of the events.
+  customer ids of different types in the two tables; and (``explain_empty_window``, when no
+  spell was found) a window that holds none of the events.
   Each raises ``UserError`` naming the column, an example value and the fix.
 * **Handled** (``count_anomalies``, after the spells): duplicates, events outside the window,
   events before the signup date, a cancellation with no open spell, a second start inside an open
@@ -38,13 +39,14 @@ class Anomaly:
     key: str
     what: str
     rule: str
+    anomaly: bool = True  # False: an ordinary case a rule settles (not a fault in the log)
 
 
 # The rules are the ones spells.sql and events_normalised.sql apply; README.md states them too.
 HANDLED: tuple[Anomaly, ...] = (
     Anomaly("n_duplicate_rows", "exact duplicate event rows", "dropped; each event counted once"),
     Anomaly("n_dropped_incomplete", "rows without a customer id, event time or kind",
-            'dropped ([rules] incomplete_rows = "drop")'),
+            'dropped when [rules] incomplete_rows = "drop"; otherwise they stop the run'),
     Anomaly("n_before_log", "events before the log start", "ignored (outside the window)"),
     Anomaly("n_after_as_of", "events after the as-of date", "ignored (outside the window)"),
     Anomaly("n_before_signup", "events dated before the customer's signup date",
@@ -57,7 +59,7 @@ HANDLED: tuple[Anomaly, ...] = (
     Anomaly("n_start_in_open_spell", "starts inside a spell that is still open",
             "ignored: the spell continues from its first start"),
     Anomaly("n_joined_returns", "returns within the reactivation gap",
-            "joined to the earlier spell (not a churn and a new spell)"),
+            "joined to the earlier spell (not a churn and a new spell)", anomaly=False),
     Anomaly("n_customers_without_spell", "customers with events but no spell",
             "left out: no start in the window and no signup date before the log start"),
     Anomaly("n_nonpositive_price", "spells starting at a price of zero or less",
@@ -195,7 +197,7 @@ def check_log(config: Config, source: Source, params: dict[str, Any]) -> dict[st
     """Stop on what cannot be handled; return counts the summary keeps (``n_dropped_incomplete``).
 
     Runs after the column names are checked and before the event codes are."""
-    from churnlife.extract import events_normalised_sql, fill, read_query
+    from churnlife.extract import fill, read_query
 
     cols = {r: source.quote(config.columns[r] or "") for r in
             ("customer_id", "event_time", "event_kind")}
@@ -226,17 +228,18 @@ def check_log(config: Config, source: Source, params: dict[str, Any]) -> dict[st
             'incomplete_rows = "drop" to leave them out (the report then counts them).'
         )
     _check_types(config, source)
-    normalised = events_normalised_sql(config, source)
-    window = source.query(
-        fill(read_query("window_rows"), {"events_normalised": normalised}), params
-    ).to_dicts()[0]
-    if not int(window["n_in_window"] or 0):
+    return {"n_dropped_incomplete": incomplete}
+
+
+def explain_empty_window(config: Config, summary: dict[str, Any]) -> None:
+    """When no spell was found: stop with a precise message if no event lies in the window
+    (summary.sql's counts), else return and let the caller say no start was found."""
+    if not int(summary.get("n_customers_in_window") or 0):
         raise UserError(
             f"none of the log's events fall inside the window {config.log_start} to "
-            f"{config.as_of}: they run from {window['first_event']} to {window['last_event']}. "
-            "Set [window] log_start and as_of to dates the log covers."
+            f"{config.as_of}: they run from {summary['first_event']} to "
+            f"{summary['last_event']}. Set [window] log_start and as_of to dates the log covers."
         )
-    return {"n_dropped_incomplete": incomplete}
 
 
 def count_anomalies(
@@ -274,9 +277,11 @@ def anomaly_table(summary: dict[str, Any]) -> pl.DataFrame:
     rows = [a for a in HANDLED if a.key in summary]
     return pl.DataFrame(
         {
-            "anomaly": [a.what for a in rows],
+            "found in the log": [a.what for a in rows],
             "count": [int(summary[a.key] or 0) for a in rows],
             "how it was handled": [a.rule for a in rows],
+            "anomaly": [a.anomaly for a in rows],
         },
-        schema={"anomaly": pl.String, "count": pl.Int64, "how it was handled": pl.String},
+        schema={"found in the log": pl.String, "count": pl.Int64,
+                "how it was handled": pl.String, "anomaly": pl.Boolean},
     )

@@ -181,3 +181,18 @@ def test_nonpositive_price_gets_no_band(tmp_path: Path):
     spells = run_extract(cfg, open_source(cfg)).spells()
     bands = dict(zip(spells["customer_id"], spells["price_band"], strict=True))
     assert bands[2] is None and bands[1] == "under 50" and bands[4] == "50 and over"
+
+
+def test_demo_anomalies_are_counted(demo_extract, demo_folder):
+    """The demo generator writes known anomalies (demo/README.md, truth.json "counts"): exact
+    duplicate rows and repeated cancellations are counted one for one; a charge failing after a
+    cancellation is an end with no open spell once its grace period is over (so at most as many);
+    nothing else is found."""
+    truth = json.loads((demo_folder / "truth.json").read_text())["counts"]
+    s = demo_extract.summary
+    assert s["n_duplicate_rows"] == truth["duplicate_rows"] > 0
+    assert s["n_cancel_without_spell"] == truth["repeated_cancellations"] > 0
+    assert 0 < s["n_failure_without_spell"] <= truth["charges_after_cancel"]
+    for key in ("n_start_in_open_spell", "n_before_signup", "n_customers_without_spell",
+                "n_nonpositive_price", "n_after_as_of", "n_before_log", "n_dropped_incomplete"):
+        assert s[key] == 0, key

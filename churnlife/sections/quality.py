@@ -5,6 +5,8 @@ from __future__ import annotations
 
 from typing import Any
 
+import polars as pl
+
 from churnlife.notes import Note
 from churnlife.quality import anomaly_table
 from churnlife.report import Section, Table, Text, esc
@@ -15,7 +17,7 @@ _NOTE_STYLE = "border-color:#1f6f78;background:#eef5f5"
 
 def quality_section(summary: dict[str, Any]) -> Section:
     table = anomaly_table(summary)
-    found = int(table["count"].sum())
+    found = int(table.filter(pl.col("anomaly"))["count"].sum())
     rows = int(summary.get("n_rows") or 0)
     lead = (
         "Nothing unusual was found in the log."
@@ -27,10 +29,11 @@ def quality_section(summary: dict[str, Any]) -> Section:
         "Data quality",
         [
             Table(
-                table,
+                table.drop("anomaly"),
                 caption="Anomalies churnlife handles by a stated rule (README.md, 'Data "
                 "quality'). Problems it cannot handle stop the run instead. Counts are of "
-                "events unless the row says otherwise.",
+                "events unless the row says otherwise; returns within the gap are ordinary, the "
+                "other rows are faults in the log.",
                 csv_name="data_quality.csv",
                 max_rows=len(table) + 1,
             )
