@@ -108,7 +108,7 @@ def _interrupt(patch: str, config: Path, out: Path, wait_for_marker: bool = True
             else:
                 pytest.fail("the run ended before reaching the slowed step")
             proc.send_signal(signal.SIGINT)
-        stdout, stderr = proc.communicate(timeout=60)
+        _, stderr = proc.communicate(timeout=60)
     finally:
         if proc.poll() is None:
             proc.kill()

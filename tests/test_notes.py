@@ -158,10 +158,12 @@ def test_report_of_a_log_where_everyone_churns(tmp_path):
     run = analyse(parse_config(config(), base=tmp_path / "data"))
     assert math.isnan(run.km.curves[0].upper[-1])  # the value the note has to explain
     out = write_outputs(run, tmp_path / "out")
+    def strict(constant: str) -> None:
+        pytest.fail(f"non-JSON constant {constant} in an output file")
+
     for path in out.glob("*.vl.json"):
-        json.loads(path.read_text(), parse_constant=lambda c: pytest.fail(f"{path}: {c}"))
-    json.loads((out / "summary.json").read_text(),
-               parse_constant=lambda c: pytest.fail(f"summary.json: {c}"))
+        json.loads(path.read_text(), parse_constant=strict)
+    json.loads((out / "summary.json").read_text(), parse_constant=strict)
     html = (out / "report.html").read_text()
     specs = html[html.index("const specs = "):]
     specs = specs[: specs.index("\n")]

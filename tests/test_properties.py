@@ -1,8 +1,8 @@
 """Property tests (hypothesis) on the SQL extract and the estimators, on random small event logs.
 
 Each property is a fact of the method, not a value: spells are conserved through the counts, the
-at-risk recursion of DEVELOPERS.md holds, counts do not depend on row order, on duplicated rows or on
-how cohorts are grouped, the SQL counts equal churnlife.counts.counts_from_durations on the same
+at-risk recursion of DEVELOPERS.md holds, counts do not depend on row order, on duplicated rows or
+on how cohorts are grouped, the SQL counts equal churnlife.counts.counts_from_durations on the same
 spells, and Kaplan–Meier on the counts is a survival curve. Where a reference library exists the
 property compares with it: statsmodels' SurvfuncRight (per-subject Kaplan–Meier, with late entry)
 must give the same curve as churnlife's aggregated counts.

@@ -11,7 +11,6 @@ from churnlife.notes import Note
 from churnlife.quality import anomaly_table
 from churnlife.report import Section, Table, Text, esc
 
-
 _NOTE_STYLE = "border-color:#1f6f78;background:#eef5f5"
 
 
