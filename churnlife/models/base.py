@@ -274,7 +274,7 @@ def maximise(
         return -ll / scale, -g / scale
 
     def grad_only(theta: np.ndarray) -> np.ndarray:
-        ll, g = loglik_grad(theta)
+        _ll, g = loglik_grad(theta)
         return g if g is not None else np.full(theta.size, np.nan)
 
     best: tuple[float, np.ndarray, int] | None = None
@@ -328,7 +328,9 @@ def maximise(
         msg = "observed information not positive definite: a parameter is not identified"
     else:
         msg = f"gradient still {gmax:.2g} at the end"
-    return MaximumLikelihood(theta, float(ll), cov, Convergence(ok, iters, gmax, pd, len(starts), msg))
+    return MaximumLikelihood(
+        theta, float(ll), cov, Convergence(ok, iters, gmax, pd, len(starts), msg)
+    )
 
 
 # ---------------------------------------------------------------------------------------------
@@ -479,9 +481,7 @@ class ModelFit:
             )
         return rng.multivariate_normal(self.params, self.cov, size=n_draws, method="cholesky")
 
-    def draw_survival(
-        self, t: np.ndarray, n_draws: int, rng: np.random.Generator
-    ) -> np.ndarray:
+    def draw_survival(self, t: np.ndarray, n_draws: int, rng: np.random.Generator) -> np.ndarray:
         t = np.maximum(np.asarray(t, dtype=float), 0.0)
         draws = self.draw_params(n_draws, rng)
         out = np.empty((n_draws, t.size))

@@ -270,7 +270,7 @@ class GeneralisedGamma:
         return np.where(pos, np.log(np.maximum(s, 1e-300)), 0.0)
 
     def log_survival_grad(self, t, theta):
-        pos, tt, sigma, q, w = self._parts(t, theta)
+        pos, _tt, sigma, q, w = self._parts(t, theta)
         if abs(q) < _Q_NEAR_ZERO:
             return self._grad_near_lognormal(t, theta)
         a = q**-2

@@ -17,6 +17,7 @@ Laird, N. & Olivier, D. (1981). Covariance analysis of censored survival data us
 
 from __future__ import annotations
 
+import itertools
 from dataclasses import dataclass
 
 import numpy as np
@@ -92,13 +93,15 @@ def auto_cuts(data: GroupedData, bands: int = 6, min_churns: int = 10) -> tuple[
             cuts.append(t)
     # merge bands with too few churns (from the back, so the open last band stays supported)
     edges = [0, *cuts, int(data.tenure[-1]) + 1]
-    sums = [d[(data.tenure > a) & (data.tenure <= b)].sum() for a, b in zip(edges, edges[1:])]
+    sums = [d[(data.tenure > a) & (data.tenure <= b)].sum() for a, b in itertools.pairwise(edges)]
     while len(cuts) and min(sums) < min_churns:
         j = int(np.argmin(sums))
         drop = j - 1 if j == len(sums) - 1 else j  # remove the cut on the band's right, or left
         cuts.pop(drop)
         edges = [0, *cuts, int(data.tenure[-1]) + 1]
-        sums = [d[(data.tenure > a) & (data.tenure <= b)].sum() for a, b in zip(edges, edges[1:])]
+        sums = [
+            d[(data.tenure > a) & (data.tenure <= b)].sum() for a, b in itertools.pairwise(edges)
+        ]
     return tuple(int(c) for c in cuts)
 
 
@@ -117,7 +120,7 @@ def fit_piecewise(
     edges = spec.edges
     exposure = _exposure(data)
     churns, times = [], []
-    for a, b in zip(edges[:-1], edges[1:], strict=True):  # loop over bands
+    for a, b in itertools.pairwise(edges):  # loop over bands
         inside = (data.tenure > a) & (data.tenure <= b)
         churns.append(data.churned[inside].sum())
         times.append(exposure[inside].sum())

@@ -59,7 +59,8 @@ def model_fitter(
     if name.startswith("spline") and name[6:] in ("1", "2", "3", "4"):
         return lambda d: fit_spline(d, int(name[6:]), confidence)
     raise UserError(
-        f'unknown model "{name}".{did_you_mean(name, MODEL_NAMES)} Models: {", ".join(MODEL_NAMES)}.'
+        f'unknown model "{name}".{did_you_mean(name, MODEL_NAMES)} '
+        f"Models: {', '.join(MODEL_NAMES)}."
     )
 
 
@@ -159,28 +160,30 @@ class HazardModels:
         frames = []
         for cohort, d in self.data.items():
             h = horizon or 2 * max(d.max_tenure, 1)
-            chosen = [self.best(cohort)] if models is None else [
-                f for f in self.for_cohort(cohort) if f.name in models
-            ]
+            chosen = (
+                [self.best(cohort)]
+                if models is None
+                else [f for f in self.for_cohort(cohort) if f.name in models]
+            )
             for f in chosen:
                 if np.all(np.isfinite(f.cov)):
                     frames.append(extrapolation_table(f, h, method, self.confidence, n_draws, rng))
         return pl.concat(frames) if frames else pl.DataFrame()
 
-    def backtests(
-        self, share: float = 0.5, models: Sequence[str] | None = None
-    ) -> list[Backtest]:
+    def backtests(self, share: float = 0.5, models: Sequence[str] | None = None) -> list[Backtest]:
         """Refit each model on the first ``share`` of each cohort's observed tenures and check
         the prediction of the rest against KM."""
         out = []
         for cohort, d in self.data.items():
-            cut = int(round(share * d.max_tenure))
+            cut = round(share * d.max_tenure)
             if cut < 2 or cut >= d.max_tenure:
                 continue
             names = models or sorted({f.name for f in self.for_cohort(cohort)})
             for name in names:
                 try:
-                    out.append(backtest(model_fitter(name, self.confidence), d, cut, self.confidence))
+                    out.append(
+                        backtest(model_fitter(name, self.confidence), d, cut, self.confidence)
+                    )
                 except _FIT_FAILURES:
                     continue
         return out
