@@ -169,7 +169,7 @@ def extrapolation_chart(bands: pl.DataFrame, unit: str, confidence: float) -> al
     rules = (
         alt.Chart(ends)
         .mark_rule(strokeDash=[2, 2], strokeWidth=1)
-        .encode(x="last_observed:Q", color=alt.Color("curve:N", legend=None))
+        .encode(x="last_observed:Q", color="curve:N")
     )
     chart = alt.layer(band, line, rules).properties(
         width=640,

@@ -459,6 +459,22 @@ class ModelFit:
                 return float(TRANSFORMS[s.transform](self.params[i]))
         raise KeyError(f"{self.name} has no parameter {name!r}; it has {self.param_names}")
 
+    @property
+    def alpha(self) -> float:
+        """The beta-mixing α of the discrete renewal models (sBG, BdW)."""
+        return self._mixing("alpha")
+
+    @property
+    def beta(self) -> float:
+        """The beta-mixing β of the discrete renewal models (sBG, BdW)."""
+        return self._mixing("beta")
+
+    def _mixing(self, name: str) -> float:
+        try:
+            return self.value(name)
+        except KeyError:
+            raise AttributeError(f"{self.name} has no {name}: only sbg and bdw do") from None
+
     def survival(self, t: np.ndarray | float) -> np.ndarray:
         t = np.asarray(t, dtype=float)
         return np.exp(self.spec.log_survival(np.maximum(t, 0.0), self.params))
