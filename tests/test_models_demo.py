@@ -53,7 +53,7 @@ def test_true_survival_and_hazard_inside_the_bands(demo_models):
     idx = CHECK_AT.astype(int)
     for name in ("weibull", "gengamma", "spline2", "bdw"):
         fit = demo_models.get(PLAN, name)
-        s, lo, hi, _q, qlo, qhi = delta_band(fit, CHECK_AT)
+        _s, lo, hi, _q, qlo, qhi = delta_band(fit, CHECK_AT)
         assert np.all((lo <= s_true[idx]) & (s_true[idx] <= hi)), name
         inside_q = (qlo <= q_true[idx - 1]) & (q_true[idx - 1] <= qhi)
         assert inside_q.sum() >= len(CHECK_AT) - 1, name  # pointwise 95%: allow one miss
