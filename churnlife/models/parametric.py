@@ -211,36 +211,48 @@ class LogLogistic:
 # --- generalised gamma ------------------------------------------------------------------------
 
 _LAGUERRE = np.polynomial.laguerre.laggauss(80)
-_SERIES_MAX_X = 3000.0
 _Q_NEAR_ZERO = 0.03
 
 
-def dlog_lower_gamma_da(a: float, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """(P(a, x), ∂P/∂a) for the regularised lower incomplete gamma P, by the series
-    P = Σ_n x^{a+n} e^{-x} / Γ(a+n+1) and its term-wise derivative (Moore 1982) for
-    x ≤ 3000, and for larger x from the upper tail by Gauss–Laguerre quadrature of
-    ∫_x^∞ log(u) u^{a-1} e^{-u} du."""
+def gamma_shape_derivative(a: float, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(∂P/∂a, ∂log Q/∂a) for the regularised incomplete gamma functions P(a, x) and
+    Q(a, x) = 1 - P(a, x), each accurate where it matters:
+
+    * near the body and lower tail, x <= max(a - 1 + 1.5 sqrt(a - 1), 1): the series
+      P = Σ_n x^{a+n} e^{-x} / Γ(a+n+1) differentiated term by term (Moore 1982);
+      ∂log Q/∂a = -∂P/∂a / Q (Q is not small there);
+    * in the upper tail: ∂log Q/∂a = E[log U | U > x] - ψ(a), the conditional mean of log U
+      under the gamma density, by Gauss–Laguerre quadrature of ∫_0^∞ (1 + v/x)^{a-1} e^{-v}
+      after rescaling v = s / r, r = 1 - (a - 1)/x (the tail's decay rate), so the relative
+      accuracy holds where Q is tiny; ∂P/∂a = -Q ∂log Q/∂a.
+    """
     x = np.asarray(x, dtype=float)
-    p = special.gammainc(a, x)
     dp = np.zeros_like(x)
-    small = (x > 0) & (x <= _SERIES_MAX_X)
-    if small.any():
-        xs = x[small]
+    dlq = np.zeros_like(x)
+    q_all = special.gammaincc(a, x)
+    # the tail starts 1.5 sd above the mean, where the rescaled integrand is smooth
+    tail = x > max(a - 1 + 1.5 * np.sqrt(max(a - 1, 0.0)), 1.0)
+    body = (x > 0) & ~tail
+    if body.any():
+        xs = x[body]
         n_terms = int(np.ceil(xs.max() + 12 * np.sqrt(xs.max()) + 60))
         n = np.arange(n_terms)
         lx = np.log(xs)[:, None]
-        log_terms = (a + n) * lx - xs[:, None] - special.gammaln(a + n + 1)
-        weights = np.exp(log_terms)
-        dp[small] = np.sum(weights * (lx - special.digamma(a + n + 1)), axis=1)
-    large = x > _SERIES_MAX_X
-    if large.any():
-        xl = x[large][:, None]
+        weights = np.exp((a + n) * lx - xs[:, None] - special.gammaln(a + n + 1))
+        dp[body] = np.sum(weights * (lx - special.digamma(a + n + 1)), axis=1)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            dlq[body] = np.where(q_all[body] > 0, -dp[body] / q_all[body], 0.0)
+    if tail.any():
+        xt = x[tail][:, None]
+        r = 1 - (a - 1) / xt
         u, w = _LAGUERRE
-        base = w * np.exp((a - 1) * np.log1p(u / xl))
-        ratio = np.sum(base * np.log(xl + u), axis=1) / np.sum(base, axis=1)
-        q = special.gammaincc(a, x[large])
-        dp[large] = -q * (ratio - special.digamma(a))
-    return p, dp
+        v = u[None, :] / r
+        log_f = (a - 1) * np.log1p(v / xt) - v + u[None, :]
+        f = w * np.exp(log_f - log_f.max(axis=1, keepdims=True))
+        mean_log = np.sum(f * np.log(xt + v), axis=1) / np.sum(f, axis=1)
+        dlq[tail] = mean_log - special.digamma(a)
+        dp[tail] = -q_all[tail] * dlq[tail]
+    return dp, dlq
 
 
 @dataclass(frozen=True)
@@ -276,19 +288,23 @@ class GeneralisedGamma:
         a = q**-2
         with np.errstate(over="ignore"):
             x = a * np.exp(np.clip(q * w, -700, 700))
-        p, dp_da = dlog_lower_gamma_da(a, x)
-        s = np.maximum(np.where(q > 0, special.gammaincc(a, x), p), 1e-300)
-        dens = np.exp((a - 1) * np.log(np.maximum(x, 1e-300)) - x - special.gammaln(a))
-        sign = -1.0 if q > 0 else 1.0  # dS/dx and dS/da carry the sign of S = 1 - P or P
-        ds_dx = sign * dens
-        ds_da = sign * dp_da
+        dp_da, dlogq_da = gamma_shape_derivative(a, x)
+        log_dens = (a - 1) * np.log(np.maximum(x, 1e-300)) - x - special.gammaln(a)
+        if q > 0:  # S = Q(a, x): work with d log S directly, accurate in the far tail
+            s = np.maximum(special.gammaincc(a, x), 1e-300)
+            dls_dx = -np.exp(log_dens - np.log(s))
+            dls_da = dlogq_da
+        else:  # S = P(a, x)
+            s = np.maximum(special.gammainc(a, x), 1e-300)
+            dls_dx = np.exp(log_dens - np.log(s))
+            dls_da = dp_da / s
         dx_dw = q * x
-        ds_dmu = ds_dx * dx_dw * (-1 / sigma)
-        ds_dlogsigma = ds_dx * dx_dw * (-w)
+        g_mu = dls_dx * dx_dw * (-1 / sigma)
+        g_logsigma = dls_dx * dx_dw * (-w)
         da_dq = -2 * q**-3
         dx_dq = x * (da_dq / a + w)
-        ds_dq = ds_da * da_dq + ds_dx * dx_dq
-        g = np.column_stack([ds_dmu, ds_dlogsigma, ds_dq]) / s[:, None]
+        g_q = dls_da * da_dq + dls_dx * dx_dq
+        g = np.column_stack([g_mu, g_logsigma, g_q])
         return np.where(pos, np.log(s), 0.0), g * pos[:, None]
 
     def _grad_near_lognormal(self, t, theta):
