@@ -33,8 +33,15 @@ def _theme(chart: alt.Chart | alt.LayerChart) -> alt.Chart | alt.LayerChart:
     )
 
 
-def retention_curves(km: KaplanMeierResult, unit: str, title: str | None = None) -> alt.LayerChart:
-    """Kaplan–Meier retention per cohort, step lines with shaded pointwise intervals."""
+MIN_AT_RISK = 10  # curves are drawn while at least this many customers are at risk
+
+
+def retention_curves(
+    km: KaplanMeierResult, unit: str, title: str | None = None, min_at_risk: int = MIN_AT_RISK
+) -> alt.LayerChart:
+    """Kaplan–Meier retention per cohort, step lines with shaded pointwise intervals. The tail
+    where fewer than ``min_at_risk`` customers remain is not drawn: one churn among two customers
+    would draw a 50-point drop that says nothing (the tables keep every tenure)."""
     table = km.to_polars()
     # Every curve starts at S = 1 at tenure 0, so steps are drawn from the first day.
     starts = pl.DataFrame(
@@ -50,24 +57,22 @@ def retention_curves(km: KaplanMeierResult, unit: str, title: str | None = None)
     data = pl.concat(
         [
             starts,
-            table.filter(pl.col("tenure") > 0).select(
+            table.filter((pl.col("tenure") > 0) & (pl.col("at_risk") >= min_at_risk)).select(
                 "cohort", "tenure", "survival", "lower", "upper", "at_risk"
             ),
         ],
         how="vertical_relaxed",
     ).sort("cohort", "tenure")
     cohorts = [c.cohort for c in km.curves]
-    colour = alt.Color(
-        "cohort:N",
-        title="Cohort",
-        scale=alt.Scale(domain=cohorts, range=PALETTE[: max(1, len(cohorts))]),
-    )
+    scale = alt.Scale(domain=cohorts, range=PALETTE[: max(1, len(cohorts))])
+    colour = alt.Color("cohort:N", title="Cohort", scale=scale)
     base = alt.Chart(data).encode(
         x=alt.X("tenure:Q", title=f"Tenure ({unit})", scale=alt.Scale(nice=False)),
         color=colour,
     )
     pct = round(km.confidence * 100)
     band = base.mark_area(opacity=0.16, interpolate="step-after").encode(
+        color=alt.Color("cohort:N", scale=scale, legend=None),
         y=alt.Y(
             "lower:Q",
             title="Share still subscribed",

@@ -22,6 +22,7 @@ from churnlife.km import KaplanMeierResult, kaplan_meier
 from churnlife.models.suite import DEFAULT_MODELS
 from churnlife.outputs import atomic_folder
 from churnlife.report import Section, charts_in, render
+from churnlife.sections.comparison import Comparison, compare_cohorts, comparison_section
 from churnlife.sections.models import model_results
 from churnlife.sections.overview import cautions_section, data_section, settings_section
 from churnlife.sections.retention import retention_section
@@ -35,6 +36,7 @@ class Analysis:
     config: Config
     extract: Extract
     km: KaplanMeierResult
+    comparison: Comparison | None = None
     sections: list[Section] = field(default_factory=list)
     tables: dict[str, pl.DataFrame] = field(default_factory=dict)
     models: Any = None  # churnlife.models.suite.HazardModels, when models were fitted
@@ -76,17 +78,28 @@ def analyse(
     source = open_source(config)
     extract = run_extract(config, source)
     km = kaplan_meier(extract.counts, config.confidence, config.interval)
-    analysis = Analysis(config, extract, km)
+    comparison = compare_cohorts(
+        extract.counts, config.cohorts, horizon=float(max(config.retention_at))
+    )
+    analysis = Analysis(config, extract, km, comparison)
     analysis.tables = {
         "counts": extract.counts,
         "km": km.to_polars(),
         "retention_at": km.retention_at(config.retention_at),
         "median_tenure": km.medians_table(),
     }
+    if comparison is not None:
+        analysis.tables["cohort_tests"] = comparison.tests_table()
+        analysis.tables["cohort_pairs"] = comparison.pairwise
+        if comparison.cox is not None:
+            analysis.tables["hazard_ratios"] = comparison.cox.to_polars()
+        if comparison.restricted is not None:
+            analysis.tables["restricted_mean"] = comparison.restricted.to_polars()
     analysis.sections = [
         settings_section(config),
         data_section(extract.summary),
         retention_section(km, config.tenure_unit, config.retention_at),
+        comparison_section(comparison),
         cautions_section(config),
     ]
     if models:

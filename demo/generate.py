@@ -1,105 +1,44 @@
-"""The demo business: Tidewell Coffee Club, a fictional coffee-bean subscription.
+"""Build the demo business: *Tidewell Coffee Club*, a fictional coffee-bean subscription.
 
-A seeded numpy simulation written into a DuckDB file with two tables, ``accounts`` and
-``subscription_events`` (see demo/README.md). The true model behind it is saved in truth.json so
-tests can check that churnlife's estimates recover it. Everything is vectorised over customers; the
-only Python loop is over billing periods.
+The generator simulates every customer from the day the club opens (2021-01-01) to the as-of date
+(2025-12-31) with a known ("true") model, then writes only what a real event log would hold: the
+events from the log's first day (2022-07-01) on, into a DuckDB file with two tables,
+``accounts`` and ``subscription_events``. The true model is written to ``truth.json`` so tests can
+compare churnlife's estimates with the values they should recover. demo/README.md describes the
+business, the tables and every rule of the model.
+
+The simulation is vectorised over customers: it steps over billing periods (at most 60 for a
+monthly plan over five years) with numpy arrays holding every active spell.
 
     python -m churnlife.demo.generate tidewell.duckdb
 """
 
 from __future__ import annotations
 
-import datetime as dt
+import argparse
 import json
-import sys
+import os
 import time
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 import duckdb
 import numpy as np
-import pyarrow as pa
+import polars as pl
 
-BUSINESS_OPENS = dt.date(2021, 1, 1)
-LOG_START = dt.date(2022, 7, 1)
-AS_OF = dt.date(2025, 12, 31)
-PRICE_RISE_DATE = dt.date(2024, 3, 1)
+# --------------------------------------------------------------------------------------------
+# The true model. Everything here is written to truth.json.
+# --------------------------------------------------------------------------------------------
 
-TRUTH: dict[str, Any] = {
-    "business": "Tidewell Coffee Club (fictional)",
-    "business_opens": BUSINESS_OPENS.isoformat(),
-    "log_start": LOG_START.isoformat(),
-    "as_of": AS_OF.isoformat(),
-    "plans": {
-        # Voluntary hazard in billing period k (1-based), for a customer who is not "never-churn":
-        #   h_k = 1 - exp(-m * ((lam*k)**gamma - (lam*(k-1))**gamma)),  m = channel multiplier
-        #   (times the price-rise hazard ratio where it applies).
-        "beans_monthly": {
-            "share": 0.55,
-            "price": 18.0,
-            "period_months": 1,
-            "lam": 0.0235,
-            "gamma": 0.6,
-            "never_churn": 0.15,
-            "p_fail": 0.04,
-        },
-        "beans_plus_monthly": {
-            "share": 0.20,
-            "price": 29.0,
-            "period_months": 1,
-            "lam": 0.0220,
-            "gamma": 0.65,
-            "never_churn": 0.20,
-            "p_fail": 0.04,
-        },
-        "beans_annual": {
-            "share": 0.25,
-            "price": 180.0,
-            "period_months": 12,
-            "lam": 0.169,
-            "gamma": 0.7,
-            "never_churn": 0.30,
-            "p_fail": 0.06,
-        },
-    },
-    "channels": {
-        "organic_search": {"share": 0.35, "hazard_multiplier": 1.0},
-        "paid_social": {"share": 0.30, "hazard_multiplier": 1.4},
-        "referral": {"share": 0.20, "hazard_multiplier": 0.75},
-        "podcast_ad": {"share": 0.15, "hazard_multiplier": 1.1},
-    },
-    "p_recover": 0.55,
-    "grace_days": 14,
-    "price_rise": {
-        "date": PRICE_RISE_DATE.isoformat(),
-        "rule": "beans_monthly spells that started before 2023-01-01 and are active on the date",
-        "new_price": 20.0,
-        "hazard_ratio": 1.35,
-        "applies_to": "voluntary hazard of billing periods that start on or after the date",
-    },
-    "reactivation": {
-        "share_of_churned": 0.12,
-        "short_gap_share": 0.15,
-        "short_gap_days": [3, 29],
-        "long_gap_days": "30 + exponential(mean 120)",
-        "second_spell": "same plan and channel, fresh tenure clock, never-churn drawn anew",
-    },
-    "plan_switch": {
-        "monthly_rate_per_month": 0.02 / 12,
-        "between": ["beans_monthly", "beans_plus_monthly"],
-        "effect": "none: hazards stay tied to the plan the spell started on",
-    },
-    "duplicate_row_share": 0.001,
-    "cancel_reasons": {
-        "too_expensive": 0.30,
-        "not_drinking_enough": 0.30,
-        "moved_to_competitor": 0.15,
-        "delivery_issues": 0.10,
-        "other": 0.15,
-    },
-}
+BUSINESS = "Tidewell Coffee Club"
+OPENS = "2021-01-01"
+SIGNUPS_TO = "2025-12-31"
+LOG_START = "2022-07-01"
+AS_OF = "2025-12-31"
 
+PLANS = ("beans_monthly", "beans_plus_monthly", "beans_annual")
+CHANNELS = ("organic_search", "paid_social", "referral", "podcast_ad")
 KINDS = (
     "subscribed",
     "resubscribed",
@@ -110,294 +49,721 @@ KINDS = (
     "price_changed",
     "plan_switched",
 )
+REASONS = (
+    "too_expensive",
+    "not_drinking_enough",
+    "moved_to_competitor",
+    "delivery_issues",
+    "other",
+)
+
+# Per plan: billing period, list price, discrete Weibull voluntary hazard (lambda, gamma) for a
+# customer who can cancel, share who never cancel voluntarily, and the renewal charge's failure and
+# recovery probabilities.
+PLAN_PARAMS: dict[str, dict[str, float]] = {
+    "beans_monthly": {
+        "period_months": 1,
+        "price": 18.00,
+        "lambda": 0.0325,
+        "gamma": 0.60,
+        "cure_share": 0.20,
+        "p_fail": 0.04,
+        "p_recover": 0.55,
+    },
+    "beans_plus_monthly": {
+        "period_months": 1,
+        "price": 29.00,
+        "lambda": 0.0280,
+        "gamma": 0.55,
+        "cure_share": 0.15,
+        "p_fail": 0.04,
+        "p_recover": 0.55,
+    },
+    "beans_annual": {
+        "period_months": 12,
+        "price": 180.00,
+        "lambda": 0.18,
+        "gamma": 0.70,
+        "cure_share": 0.35,
+        "p_fail": 0.06,
+        "p_recover": 0.55,
+    },
+}
+PLAN_MIX = {"beans_monthly": 0.58, "beans_plus_monthly": 0.24, "beans_annual": 0.18}
+CHANNEL_MIX = {"organic_search": 0.38, "paid_social": 0.30, "referral": 0.20, "podcast_ad": 0.12}
+CHANNEL_HR = {"organic_search": 1.00, "paid_social": 1.45, "referral": 0.70, "podcast_ad": 1.15}
+GROWTH_PER_YEAR = 0.22  # signups per day grow as exp(0.22 * years since opening)
+SEASON_AMPLITUDE = 0.20  # and peak each year in mid December (gift subscriptions)
+SEASON_PEAK_DAY_OF_YEAR = 349
+
+GRACE_DAYS = 14
+RECOVERY_DELAY_DAYS = (1, 13)
+
+REACTIVATION_SHARE = 0.12
+SHORT_GAP_SHARE = 0.15
+SHORT_GAP_DAYS = (1, 29)
+LONG_GAP_MIN_DAYS = 30
+LONG_GAP_EXTRA_MEAN_DAYS = 150.0
+
+PRICE_CHANGE_DATE = "2024-03-01"
+PRICE_CHANGE_PLAN = "beans_monthly"
+PRICE_CHANGE_STARTED_BEFORE = "2023-01-01"
+PRICE_CHANGE_NEW_PRICE = 20.00
+PRICE_CHANGE_HR = 1.35
+
+SWITCH_RATE_PER_YEAR = 0.02
+SWITCH_PER_PERIOD = 1.0 - (1.0 - SWITCH_RATE_PER_YEAR) ** (1.0 / 12.0)
+
+CANCEL_REASON_MIX = {
+    "too_expensive": 0.28,
+    "not_drinking_enough": 0.30,
+    "moved_to_competitor": 0.17,
+    "delivery_issues": 0.13,
+    "other": 0.12,
+}
+DUPLICATE_RATE = 0.001
+
+# --------------------------------------------------------------------------------------------
+# Internals: dates are int64 day numbers since 1970-01-01, times of day are seconds.
+# --------------------------------------------------------------------------------------------
+
+_K = {name: i for i, name in enumerate(KINDS)}
+_PERIOD = np.array([PLAN_PARAMS[p]["period_months"] for p in PLANS], dtype=np.int64)
+_PRICE = np.array([PLAN_PARAMS[p]["price"] for p in PLANS])
+_LAM = np.array([PLAN_PARAMS[p]["lambda"] for p in PLANS])
+_GAM = np.array([PLAN_PARAMS[p]["gamma"] for p in PLANS])
+_CURE = np.array([PLAN_PARAMS[p]["cure_share"] for p in PLANS])
+_PFAIL = np.array([PLAN_PARAMS[p]["p_fail"] for p in PLANS])
+_PREC = np.array([PLAN_PARAMS[p]["p_recover"] for p in PLANS])
+_CHAN_HR = np.array([CHANNEL_HR[c] for c in CHANNELS])
+_MONTHLY, _PLUS, _ANNUAL = 0, 1, 2
+_NO_END = np.iinfo(np.int64).max // 4
+_LAST_SECOND = 86_398  # times of day are drawn in [1, 86398]; price changes run at 00:00:00
+
+
+def _day(iso: str) -> int:
+    return int(np.datetime64(iso, "D").astype(np.int64))
+
+
+def _month_start(month_index: np.ndarray) -> np.ndarray:
+    """Day number of the first day of each month (months counted from 1970-01)."""
+    return month_index.astype("datetime64[M]").astype("datetime64[D]").astype(np.int64)
+
+
+def _anniversary(month0: np.ndarray, dom: np.ndarray, months: np.ndarray | int) -> np.ndarray:
+    """The date ``months`` calendar months after a start (same day of month, clamped to its end)."""
+    m = month0 + months
+    first = _month_start(m)
+    days_in_month = _month_start(m + 1) - first
+    return first + np.minimum(dom, days_in_month) - 1
+
+
+def _split_date(day: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Month index (since 1970-01) and day of month of day numbers."""
+    d = day.astype("datetime64[D]")
+    month0 = d.astype("datetime64[M]").astype(np.int64)
+    dom = day - _month_start(month0) + 1
+    return month0, dom
+
+
+def _tod(rng: np.random.Generator, n: int) -> np.ndarray:
+    return rng.integers(1, _LAST_SECOND + 1, n)
+
+
+def _uniform_offset(rng: np.random.Generator, lo: np.ndarray, hi: np.ndarray) -> np.ndarray:
+    """Integer in [lo, hi) per element (hi > lo)."""
+    return lo + np.floor(rng.random(lo.size) * (hi - lo)).astype(np.int64)
+
+
+@dataclass
+class _Events:
+    """Event rows collected in chunks (one chunk per event kind and billing period)."""
+
+    chunks: list[tuple[np.ndarray, ...]] = field(default_factory=list)
+
+    def add(
+        self,
+        account: np.ndarray,
+        day: np.ndarray,
+        tod: np.ndarray | int,
+        kind: str,
+        plan: np.ndarray | int,
+        amount: np.ndarray | float,
+        reason: np.ndarray | int = -1,
+    ) -> None:
+        n = account.size
+        if n == 0:
+            return
+        self.chunks.append(
+            (
+                account.astype(np.int64),
+                day.astype(np.int64),
+                np.broadcast_to(np.asarray(tod, dtype=np.int64), n).copy(),
+                np.full(n, _K[kind], dtype=np.int8),
+                np.broadcast_to(np.asarray(plan, dtype=np.int8), n).copy(),
+                np.broadcast_to(np.asarray(amount, dtype=np.float64), n).copy(),
+                np.broadcast_to(np.asarray(reason, dtype=np.int8), n).copy(),
+            )
+        )
+
+    def arrays(self) -> dict[str, np.ndarray]:
+        names = ("account", "day", "tod", "kind", "plan", "amount", "reason")
+        return {name: np.concatenate([c[i] for c in self.chunks]) for i, name in enumerate(names)}
+
+
+@dataclass
+class _Spells:
+    """Outcome of simulated spells (one element per spell)."""
+
+    account: np.ndarray
+    start_day: np.ndarray
+    plan: np.ndarray  # plan at the spell's start (its hazards)
+    channel: np.ndarray
+    end_day: np.ndarray  # _NO_END if still active when the simulation stops (as-of date)
+    cause: np.ndarray  # 0 active, 1 voluntary, 2 involuntary
+    churn_period: np.ndarray  # billing period in which the spell ended (0 if active)
+    last_plan: np.ndarray
+    price_rise: np.ndarray  # got the price change (and its hazard ratio)
+
+
+def _simulate_spells(
+    rng: np.random.Generator,
+    events: _Events,
+    account: np.ndarray,
+    start_day: np.ndarray,
+    plan: np.ndarray,
+    channel: np.ndarray,
+    start_kind: str,
+) -> _Spells:
+    """Simulate spells that begin on ``start_day``, stepping over billing periods."""
+    as_of, d_price, rule_day = (
+        _day(AS_OF),
+        _day(PRICE_CHANGE_DATE),
+        _day(PRICE_CHANGE_STARTED_BEFORE),
+    )
+    n = account.size
+    month0, dom = _split_date(start_day)
+    period = _PERIOD[plan]
+    cured = rng.random(n) < _CURE[plan]
+    chan_hr = _CHAN_HR[channel]
+    plan_cur = plan.astype(np.int8).copy()
+    price_cur = _PRICE[plan].copy()
+    affected = np.zeros(n, dtype=bool)
+    end_day = np.full(n, _NO_END, dtype=np.int64)
+    cause = np.zeros(n, dtype=np.int8)
+    churn_period = np.zeros(n, dtype=np.int32)
+
+    start_tod = _tod(rng, n)
+    events.add(account, start_day, start_tod, start_kind, plan_cur, price_cur)
+
+    active = np.flatnonzero(start_day <= as_of)
+    k = 1
+    while active.size:
+        a = active
+        m = a.size
+        p_s = _anniversary(month0[a], dom[a], (k - 1) * period[a])
+        p_e = _anniversary(month0[a], dom[a], k * period[a])
+        length = p_e - p_s
+        tod0 = start_tod[a]
+        pl_a = plan[a]
+
+        # Price change on a period's first day: before that day's renewal charge.
+        top = (p_s == d_price) & (start_day[a] < rule_day) & (plan_cur[a] == _MONTHLY)
+        if top.any():
+            t = a[top]
+            price_cur[t] = PRICE_CHANGE_NEW_PRICE
+            affected[t] = True
+            events.add(account[t], p_s[top], 0, "price_changed", _MONTHLY, PRICE_CHANGE_NEW_PRICE)
+
+        lo = np.zeros(m, dtype=np.int64)  # first day offset open to a cancel or a switch
+        lost = np.zeros(m, dtype=bool)
+        if k >= 2:
+            tod0 = _tod(rng, m)
+            fail = rng.random(m) < _PFAIL[pl_a]
+            recovered = fail & (rng.random(m) < _PREC[pl_a])
+            lost = fail & ~recovered
+            delay = rng.integers(RECOVERY_DELAY_DAYS[0], RECOVERY_DELAY_DAYS[1] + 1, m)
+            ok = ~fail
+            events.add(
+                account[a[ok]], p_s[ok], tod0[ok], "renewed", plan_cur[a[ok]], price_cur[a[ok]]
+            )
+            events.add(
+                account[a[fail]],
+                p_s[fail],
+                tod0[fail],
+                "charge_failed",
+                plan_cur[a[fail]],
+                price_cur[a[fail]],
+            )
+            r = a[recovered]
+            events.add(
+                account[r],
+                p_s[recovered] + delay[recovered],
+                _tod(rng, r.size),
+                "charge_recovered",
+                plan_cur[r],
+                price_cur[r],
+            )
+            lo = np.where(recovered, delay + 1, 0)
+            t = a[lost]
+            end_day[t] = p_s[lost]
+            cause[t] = 2
+            churn_period[t] = k
+
+        # Voluntary cancellation: discrete Weibull hazard of the starting plan, proportional
+        # hazards for channel and price rise (on the cumulative hazard of the period).
+        d_hazard = _LAM[pl_a] ** _GAM[pl_a] * (k ** _GAM[pl_a] - (k - 1) ** _GAM[pl_a])
+        hr = chan_hr[a] * np.where(affected[a], PRICE_CHANGE_HR, 1.0)
+        h = 1.0 - np.exp(-hr * d_hazard)
+        stay = ~lost
+        cancel = stay & ~cured[a] & (rng.random(m) < h)
+        c_off = _uniform_offset(rng, lo, length)
+        c_tod = np.where(
+            c_off == 0,
+            tod0 + 1 + np.floor(rng.random(m) * (_LAST_SECOND + 1 - tod0)).astype(np.int64),
+            _tod(rng, m),
+        )
+        c_day = p_s + c_off
+
+        # Plan switch between the two monthly plans (not in the period a customer cancels).
+        switch = stay & ~cancel & (plan_cur[a] != _ANNUAL) & (rng.random(m) < SWITCH_PER_PERIOD)
+        s_day = p_s + _uniform_offset(rng, np.maximum(lo, 1), length)
+        new_plan = (1 - plan_cur[a]).astype(np.int8)
+
+        # Price change inside a period: customers active that day on beans_monthly.
+        mid = (p_s < d_price) & (d_price < p_e) & stay & (start_day[a] < rule_day)
+        mid &= ~(cancel & (c_day < d_price))
+        plan_at_d = np.where(switch & (s_day < d_price), new_plan, plan_cur[a])
+        mid &= plan_at_d == _MONTHLY
+        if mid.any():
+            t = a[mid]
+            affected[t] = True
+            events.add(
+                account[t],
+                np.full(t.size, d_price),
+                0,
+                "price_changed",
+                _MONTHLY,
+                PRICE_CHANGE_NEW_PRICE,
+            )
+        cancel_price = np.where(mid, PRICE_CHANGE_NEW_PRICE, price_cur[a])
+
+        reason = rng.choice(len(REASONS), size=m, p=list(CANCEL_REASON_MIX.values()))
+        c = a[cancel]
+        events.add(
+            account[c],
+            c_day[cancel],
+            c_tod[cancel],
+            "cancelled",
+            plan_cur[c],
+            cancel_price[cancel],
+            reason[cancel],
+        )
+        end_day[c] = c_day[cancel]
+        cause[c] = 1
+        churn_period[c] = k
+
+        sw = a[switch]
+        events.add(
+            account[sw],
+            s_day[switch],
+            _tod(rng, sw.size),
+            "plan_switched",
+            new_plan[switch],
+            _PRICE[new_plan[switch]],
+        )
+        new_price = np.where(switch, _PRICE[new_plan], price_cur[a])
+        new_price = np.where(
+            mid & ~(switch & (s_day >= d_price)), PRICE_CHANGE_NEW_PRICE, new_price
+        )
+        price_cur[a] = new_price
+        plan_cur[a] = np.where(switch, new_plan, plan_cur[a])
+
+        active = a[stay & ~cancel & (p_e <= as_of)]
+        k += 1
+
+    return _Spells(
+        account=account,
+        start_day=start_day,
+        plan=plan.astype(np.int8),
+        channel=channel.astype(np.int8),
+        end_day=end_day,
+        cause=cause,
+        churn_period=churn_period,
+        last_plan=plan_cur,
+        price_rise=affected,
+    )
+
+
+@dataclass
+class Simulation:
+    """Everything the generator simulated (before the log window is applied)."""
+
+    n_customers: int
+    seed: int
+    signup_day: np.ndarray
+    channel: np.ndarray
+    first: _Spells
+    second: _Spells
+    short_gap: np.ndarray  # per second spell: returned less than 30 days after the first ended
+    events: dict[str, np.ndarray]
+
+
+def _signup_days(rng: np.random.Generator, n: int) -> np.ndarray:
+    """Signup dates: growing acquisition with a December peak."""
+    days = np.arange(_day(OPENS), _day(SIGNUPS_TO) + 1)
+    years = (days - days[0]) / 365.25
+    jan1 = days.astype("datetime64[D]").astype("datetime64[Y]").astype("datetime64[D]")
+    doy = (days - jan1.astype(np.int64)).astype(float)
+    weight = np.exp(GROWTH_PER_YEAR * years) * (
+        1.0 + SEASON_AMPLITUDE * np.cos(2 * np.pi * (doy - SEASON_PEAK_DAY_OF_YEAR) / 365.25)
+    )
+    return np.sort(rng.choice(days, size=n, p=weight / weight.sum()))
+
+
+def simulate(n_customers: int = 60_000, seed: int = 20261202) -> Simulation:
+    """Simulate the club's customers with the true model (no log window, no anomalies)."""
+    rng = np.random.default_rng(seed)
+    as_of = _day(AS_OF)
+    signup = _signup_days(rng, n_customers)
+    account = np.arange(100_001, 100_001 + n_customers, dtype=np.int64)
+    channel = rng.choice(len(CHANNELS), size=n_customers, p=list(CHANNEL_MIX.values()))
+    plan = rng.choice(len(PLANS), size=n_customers, p=list(PLAN_MIX.values()))
+
+    events = _Events()
+    first = _simulate_spells(rng, events, account, signup, plan, channel, "subscribed")
+
+    # Reactivation: a share of ended first spells come back once, after a gap.
+    ended = first.end_day <= as_of
+    returns = ended & (rng.random(n_customers) < REACTIVATION_SHARE)
+    short = rng.random(n_customers) < SHORT_GAP_SHARE
+    gap = np.where(
+        short,
+        rng.integers(SHORT_GAP_DAYS[0], SHORT_GAP_DAYS[1] + 1, n_customers),
+        LONG_GAP_MIN_DAYS
+        + np.floor(rng.exponential(LONG_GAP_EXTRA_MEAN_DAYS, n_customers)).astype(np.int64),
+    )
+    back_day = np.where(returns, first.end_day + gap, _NO_END)
+    back = np.flatnonzero(back_day <= as_of)
+    second = _simulate_spells(
+        rng,
+        events,
+        account[back],
+        back_day[back],
+        first.last_plan[back].astype(np.int64),
+        channel[back],
+        "resubscribed",
+    )
+    return Simulation(
+        n_customers=n_customers,
+        seed=seed,
+        signup_day=signup,
+        channel=channel,
+        first=first,
+        second=second,
+        short_gap=short[back],
+        events=events.arrays(),
+    )
+
+
+# --------------------------------------------------------------------------------------------
+# The log, the database and truth.json
+# --------------------------------------------------------------------------------------------
+
+
+def _first_paid_on(sim: Simulation) -> np.ndarray:
+    """The start of the spell in progress when the log begins, else the first signup date."""
+    log_start = _day(LOG_START)
+    first_paid = sim.signup_day.copy()
+    s = sim.second
+    in_progress = (s.start_day < log_start) & (s.end_day >= log_start)
+    idx = s.account[in_progress] - 100_001
+    first_paid[idx] = s.start_day[in_progress]
+    return first_paid
+
+
+def _log_rows(sim: Simulation, rng: np.random.Generator) -> tuple[dict[str, np.ndarray], int]:
+    """Events inside the log window, plus a few exactly duplicated rows."""
+    ev = sim.events
+    keep = (ev["day"] >= _day(LOG_START)) & (ev["day"] <= _day(AS_OF))
+    rows = {k: v[keep] for k, v in ev.items()}
+    dup = np.flatnonzero(rng.random(rows["day"].size) < DUPLICATE_RATE)
+    rows = {k: np.concatenate([v, v[dup]]) for k, v in rows.items()}
+    order = np.lexsort((rows["kind"], rows["account"], rows["tod"], rows["day"]))
+    return {k: v[order] for k, v in rows.items()}, int(dup.size)
+
+
+def _write_database(path: Path, accounts: pl.DataFrame, events: pl.DataFrame) -> None:
+    tmp = path.with_name(path.name + ".tmp")
+    for p in (tmp, Path(str(tmp) + ".wal")):
+        p.unlink(missing_ok=True)
+    con = duckdb.connect(str(tmp))
+    try:
+        con.register("accounts_src", accounts.to_arrow())
+        con.register("events_src", events.to_arrow())
+        con.execute(
+            """
+            CREATE TABLE accounts AS
+            SELECT CAST(account_id AS BIGINT) AS account_id,
+                   CAST(DATE '1970-01-01' + CAST(first_paid_day AS INTEGER) AS DATE)
+                       AS first_paid_on,
+                   CAST($channels[channel + 1] AS VARCHAR) AS acquisition_channel
+            FROM accounts_src
+            ORDER BY account_id
+            """,
+            {"channels": list(CHANNELS)},
+        )
+        con.execute(
+            """
+            CREATE TABLE subscription_events AS
+            SELECT CAST(account AS BIGINT) AS account_id,
+                   CAST(TIMESTAMP '1970-01-01' + to_seconds(day * 86400 + tod) AS TIMESTAMP)
+                       AS occurred_at,
+                   CAST($kinds[kind + 1] AS VARCHAR) AS kind,
+                   CAST($plans[plan + 1] AS VARCHAR) AS plan_code,
+                   CAST(round(amount, 2) AS DOUBLE) AS amount,
+                   CAST(CASE WHEN reason < 0 THEN NULL ELSE $reasons[reason + 1] END AS VARCHAR)
+                       AS reason
+            FROM events_src
+            """,
+            {"kinds": list(KINDS), "plans": list(PLANS), "reasons": list(REASONS)},
+        )
+        con.execute("CHECKPOINT")
+    finally:
+        con.close()
+    os.replace(tmp, path)
+    Path(str(path) + ".wal").unlink(missing_ok=True)
+
+
+def model_parameters() -> dict[str, Any]:
+    """The true model, as stored in truth.json (independent of size and seed)."""
+    return {
+        "business": BUSINESS,
+        "dates": {
+            "business_opens": OPENS,
+            "signups_from": OPENS,
+            "signups_to": SIGNUPS_TO,
+            "log_start": LOG_START,
+            "as_of": AS_OF,
+        },
+        "tables": {
+            "accounts": ["account_id", "first_paid_on", "acquisition_channel"],
+            "subscription_events": [
+                "account_id",
+                "occurred_at",
+                "kind",
+                "plan_code",
+                "amount",
+                "reason",
+            ],
+        },
+        "event_kinds": list(KINDS),
+        "cancel_reasons": list(REASONS),
+        "acquisition": {
+            "signup_intensity": "exp(growth_per_year * years_since_opening) * (1 + "
+            "season_amplitude * cos(2*pi*(day_of_year0 - season_peak_day_of_year0)/365.25))",
+            "growth_per_year": GROWTH_PER_YEAR,
+            "season_amplitude": SEASON_AMPLITUDE,
+            "season_peak_day_of_year0": SEASON_PEAK_DAY_OF_YEAR,
+            "plan_mix": PLAN_MIX,
+            "channel_mix": CHANNEL_MIX,
+        },
+        "voluntary_hazard": {
+            "form": "h_k = 1 - exp(-HR * ((lambda*k)**gamma - (lambda*(k-1))**gamma)) in billing "
+            "period k = 1, 2, ... of the spell, for the (1 - cure_share) who can cancel; "
+            "HR = channel_multiplier * (price_change.hazard_ratio if the spell got the price "
+            "change and the period starts on or after its date, else 1). Plan = the spell's "
+            "starting plan. The cancel date is uniform over the days of period k (after a "
+            "recovered charge of that period, if any).",
+            "channel_multipliers": CHANNEL_HR,
+        },
+        "plans": PLAN_PARAMS,
+        "involuntary": {
+            "rule": "at each renewal (the start of period k >= 2) the charge fails with p_fail; a "
+            "failed charge is recovered with p_recover (charge_recovered after the delay) and "
+            "the spell goes on; otherwise the spell ends on the failed charge's date (counted "
+            "in period k). Cured customers can churn this way too.",
+            "grace_days": GRACE_DAYS,
+            "recovery_delay_days_uniform": list(RECOVERY_DELAY_DAYS),
+        },
+        "true_survival": {
+            "form": "S(k) = (1 - p_fail*(1 - p_recover))**max(k-1, 0) * (cure_share + "
+            "(1 - cure_share) * exp(-channel_multiplier * (lambda*k)**gamma)): share of new "
+            "first spells still active at the end of billing period k, no price change",
+        },
+        "reactivation": {
+            "share_of_ended_first_spells": REACTIVATION_SHARE,
+            "short_gap_share": SHORT_GAP_SHARE,
+            "short_gap_days_uniform": list(SHORT_GAP_DAYS),
+            "long_gap_days": f"{LONG_GAP_MIN_DAYS} + floor(Exponential(mean "
+            f"{LONG_GAP_EXTRA_MEAN_DAYS:g}))",
+            "long_gap_min_days": LONG_GAP_MIN_DAYS,
+            "long_gap_extra_mean_days": LONG_GAP_EXTRA_MEAN_DAYS,
+            "max_per_customer": 1,
+            "plan": "the plan in force when the first spell ended",
+            "tenure": "a fresh spell: its own cure draw and hazards from period 1",
+            "not_observed_if_after_as_of": True,
+        },
+        "price_change": {
+            "date": PRICE_CHANGE_DATE,
+            "plan": PRICE_CHANGE_PLAN,
+            "spell_started_before": PRICE_CHANGE_STARTED_BEFORE,
+            "rule": "every spell active on the date, on beans_monthly that day, whose start is "
+            "before spell_started_before gets price_changed (00:00:00) to new_price",
+            "old_price": PLAN_PARAMS[PRICE_CHANGE_PLAN]["price"],
+            "new_price": PRICE_CHANGE_NEW_PRICE,
+            "hazard_ratio": PRICE_CHANGE_HR,
+            "hazard_ratio_applies": "voluntary hazard of billing periods starting on or after the "
+            "date, for the rest of the spell (also after a plan switch)",
+        },
+        "plan_switch": {
+            "between": ["beans_monthly", "beans_plus_monthly"],
+            "rate_per_year": SWITCH_RATE_PER_YEAR,
+            "probability_per_monthly_period": SWITCH_PER_PERIOD,
+            "not_in_the_period_of_a_cancel": True,
+            "new_price": "list price of the new plan",
+            "hazards_follow": "the spell's starting plan",
+        },
+        "cancel_reason_mix": CANCEL_REASON_MIX,
+        "anomalies": {"duplicate_row_rate": DUPLICATE_RATE},
+    }
+
+
+def _counts(
+    sim: Simulation, rows: dict[str, np.ndarray], n_dup: int, first_paid: np.ndarray
+) -> dict[str, Any]:
+    log_start, as_of = _day(LOG_START), _day(AS_OF)
+    spells = [sim.first, sim.second]
+    start = np.concatenate([s.start_day for s in spells])
+    end = np.concatenate([s.end_day for s in spells])
+    cause = np.concatenate([s.cause for s in spells])
+    kinds = np.bincount(rows["kind"], minlength=len(KINDS))
+    in_log = np.unique(rows["account"])
+    seen = (end >= log_start) & (start <= as_of)
+    late = (start < log_start) & (end >= log_start)
+    return {
+        "customers": int(sim.n_customers),
+        "signups_before_log": int((sim.signup_day < log_start).sum()),
+        "signups_in_log": int((sim.signup_day >= log_start).sum()),
+        "customers_with_events": int(in_log.size),
+        "customers_without_events": int(sim.n_customers - in_log.size),
+        "late_entry_customers": int(late.sum()),
+        "pre_log_customers_first_seen_resubscribing": int(
+            (
+                (first_paid < log_start)
+                & np.isin(np.arange(100_001, 100_001 + sim.n_customers), in_log)
+            ).sum()
+            - late.sum()
+        ),
+        "spells_simulated": int(start.size),
+        "spells_in_log_window": int(seen.sum()),
+        "spells_in_progress_at_log_start": int(late.sum()),
+        "reactivations": int(sim.second.account.size),
+        "reactivations_short_gap": int(sim.short_gap.sum()),
+        "reactivations_in_log": int((sim.second.start_day >= log_start).sum()),
+        "reactivations_short_gap_in_log": int(
+            (sim.short_gap & (sim.second.start_day >= log_start)).sum()
+        ),
+        "voluntary_ends_by_as_of": int(((cause == 1) & (end <= as_of)).sum()),
+        "involuntary_ends_by_as_of": int(((cause == 2) & (end <= as_of)).sum()),
+        "voluntary_ends_in_log": int(((cause == 1) & (end <= as_of) & (end >= log_start)).sum()),
+        "involuntary_ends_in_log": int(((cause == 2) & (end <= as_of) & (end >= log_start)).sum()),
+        "active_at_as_of": int((end > as_of).sum()),
+        "price_rise_spells": int(sum(int(s.price_rise.sum()) for s in spells)),
+        "events": int(rows["day"].size),
+        "events_distinct": int(rows["day"].size - n_dup),
+        "duplicate_rows": n_dup,
+        "events_by_kind": {k: int(kinds[i]) for i, k in enumerate(KINDS)},
+    }
+
+
+def build_demo(
+    path: str | Path,
+    n_customers: int = 60_000,
+    seed: int = 20261202,
+    *,
+    truth_path: str | Path | None = None,
+) -> dict:
+    """Write the demo DuckDB file at ``path`` and ``truth.json`` beside it (or at truth_path).
+
+    Returns a small summary: customers, events, spells, duplicates, file paths.
+    """
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    sim = simulate(n_customers, seed)
+    rng = np.random.default_rng([seed, 1])  # the anomalies' own stream
+    rows, n_dup = _log_rows(sim, rng)
+    first_paid = _first_paid_on(sim)
+
+    accounts = pl.DataFrame(
+        {
+            "account_id": np.arange(100_001, 100_001 + n_customers, dtype=np.int64),
+            "first_paid_day": first_paid,
+            "channel": sim.channel.astype(np.int64),
+        }
+    )
+    events = pl.DataFrame(
+        {k: rows[k] for k in ("account", "day", "tod", "kind", "plan", "amount", "reason")}
+    )
+    _write_database(path, accounts, events)
+
+    truth = model_parameters()
+    truth["generator"] = {"n_customers": n_customers, "seed": seed}
+    truth["counts"] = _counts(sim, rows, n_dup, first_paid)
+    truth_file = Path(truth_path) if truth_path is not None else path.parent / "truth.json"
+    truth_file.write_text(json.dumps(truth, indent=2) + "\n")
+
+    c = truth["counts"]
+    return {
+        "customers": c["customers"],
+        "events": c["events"],
+        "spells": c["spells_in_log_window"],
+        "spells_simulated": c["spells_simulated"],
+        "late_entry_customers": c["late_entry_customers"],
+        "duplicate_rows": c["duplicate_rows"],
+        "database": str(path),
+        "truth": str(truth_file),
+    }
 
 
 def true_period_survival(
     truth: dict, plan: str, channel: str, periods: np.ndarray, hazard_ratio: float = 1.0
 ) -> np.ndarray:
-    """P(a new customer's first spell lasts at least k billing periods), no price rise.
+    """P(a new customer's first spell is still active at the end of billing period k), no price
+    change: voluntary (cure mixture of a discrete Weibull, channel multiplier) and involuntary
+    (unrecovered renewal failures at the start of periods 2, 3, ...) churn. S(0) = 1.
 
-    Survival through period k needs: no voluntary churn in periods 1..k, and every renewal charge
-    at the end of periods 1..k-1 paid or recovered (a failure at the end of period k ends the spell
-    at the start of period k+1, so it counts against k+1)."""
+    ``hazard_ratio`` multiplies the voluntary hazard of every period (1: the plain curve)."""
     p = truth["plans"][plan]
-    m = truth["channels"][channel]["hazard_multiplier"] * hazard_ratio
+    hr = truth["voluntary_hazard"]["channel_multipliers"][channel] * hazard_ratio
     k = np.asarray(periods, dtype=float)
-    lam, gam = p["lam"], p["gamma"]
-    cured = p["never_churn"]
-    vol = cured + (1 - cured) * np.exp(-m * (lam * k) ** gam)
-    p_lose = p["p_fail"] * (1 - truth["p_recover"])
-    invol = (1 - p_lose) ** np.maximum(k - 1, 0)
-    return vol * invol
-
-
-# --- calendar helpers (vectorised) -------------------------------------------------------------
-
-
-def _to_days(d: dt.date) -> int:
-    return (d - dt.date(1970, 1, 1)).days
-
-
-def _add_months(days: np.ndarray, months: np.ndarray) -> np.ndarray:
-    """Dates (days since epoch) plus whole months, clamped to month end."""
-    d = days.astype("datetime64[D]")
-    m = d.astype("datetime64[M]")
-    day_of_month = (d - m.astype("datetime64[D]")).astype(np.int64)
-    target = m + months.astype(np.int64)
-    month_len = ((target + 1).astype("datetime64[D]") - target.astype("datetime64[D]")).astype(
-        np.int64
+    voluntary = p["cure_share"] + (1.0 - p["cure_share"]) * np.exp(
+        -hr * (p["lambda"] * k) ** p["gamma"]
     )
-    out = target.astype("datetime64[D]") + np.minimum(day_of_month, month_len - 1)
-    return out.astype(np.int64)
-
-
-# --- simulation --------------------------------------------------------------------------------
-
-
-def _simulate(
-    rng: np.random.Generator,
-    start: np.ndarray,
-    plan: np.ndarray,
-    channel: np.ndarray,
-    first_kind: str,
-    eligible_rise_before: int,
-) -> tuple[dict[str, list[np.ndarray]], np.ndarray, np.ndarray]:
-    """Simulate one spell per row from its start date. Returns event columns (lists of arrays),
-    the spell's end date (days; -1 if active at as-of) and whether it ended."""
-    n = start.size
-    plans = list(TRUTH["plans"])
-    pm = np.array([TRUTH["plans"][p]["period_months"] for p in plans])[plan]
-    lam = np.array([TRUTH["plans"][p]["lam"] for p in plans])[plan]
-    gam = np.array([TRUTH["plans"][p]["gamma"] for p in plans])[plan]
-    cure = np.array([TRUTH["plans"][p]["never_churn"] for p in plans])[plan]
-    p_fail = np.array([TRUTH["plans"][p]["p_fail"] for p in plans])[plan]
-    price = np.array([TRUTH["plans"][p]["price"] for p in plans])[plan]
-    mult = np.array([c["hazard_multiplier"] for c in TRUTH["channels"].values()])[channel]
-    cured = rng.random(n) < cure
-    rise_day = _to_days(PRICE_RISE_DATE)
-    as_of = _to_days(AS_OF)
-    hr = TRUTH["price_rise"]["hazard_ratio"]
-    rise_eligible = (plan == plans.index("beans_monthly")) & (start < eligible_rise_before)
-    risen = np.zeros(n, dtype=bool)
-    cur_plan = plan.copy()
-    cur_price = price.copy()
-    reasons = np.array(list(TRUTH["cancel_reasons"]))
-    reason_p = np.array(list(TRUTH["cancel_reasons"].values()))
-    switch_rate = TRUTH["plan_switch"]["monthly_rate_per_month"]
-    monthly_ids = np.array([plans.index("beans_monthly"), plans.index("beans_plus_monthly")])
-    plan_price = np.array([TRUTH["plans"][p]["price"] for p in plans])
-
-    cols: dict[str, list[np.ndarray]] = {
-        k: [] for k in ("row", "day", "kind", "plan", "price", "reason", "sec")
-    }
-
-    def emit(idx: np.ndarray, day: np.ndarray, kind: str, reason: np.ndarray | None = None):
-        cols["row"].append(idx)
-        cols["day"].append(day)
-        cols["kind"].append(np.full(idx.size, KINDS.index(kind), dtype=np.int8))
-        cols["plan"].append(cur_plan[idx].copy())
-        cols["price"].append(cur_price[idx].copy())
-        cols["reason"].append(
-            np.full(idx.size, -1, dtype=np.int8) if reason is None else reason.astype(np.int8)
-        )
-        # starts happen in the morning, everything else later, so a same-day cancel sorts after
-        lo, hi = (
-            (6 * 3600, 8 * 3600)
-            if kind in ("subscribed", "resubscribed")
-            else (8 * 3600, 23 * 3600)
-        )
-        cols["sec"].append(rng.integers(lo, hi, idx.size))
-
-    emit(np.arange(n), start, first_kind)
-    end = np.full(n, -1, dtype=np.int64)
-    ended = np.zeros(n, dtype=bool)
-    active = np.ones(n, dtype=bool)
-    k = 0
-    while active.any():
-        k += 1
-        idx = np.flatnonzero(active)
-        p_start = _add_months(start[idx], (k - 1) * pm[idx])
-        p_end = _add_months(start[idx], k * pm[idx])
-        # periods starting after as-of are not observed: those customers stay active (censored)
-        still = p_start <= as_of
-        active[idx[~still]] = False
-        idx, p_start, p_end = idx[still], p_start[still], p_end[still]
-        if idx.size == 0:
-            break
-        # price rise: announced on the date to eligible customers active then
-        on_rise = rise_eligible[idx] & ~risen[idx] & (p_start <= rise_day) & (rise_day < p_end)
-        # voluntary churn in period k
-        m = mult[idx] * np.where(risen[idx], hr, 1.0)
-        h = 1 - np.exp(-m * ((lam[idx] * k) ** gam[idx] - (lam[idx] * (k - 1)) ** gam[idx]))
-        leaves = (~cured[idx]) & (rng.random(idx.size) < h)
-        cancel_day = p_start + (rng.random(idx.size) * (p_end - p_start)).astype(np.int64)
-        # plan switches between the two monthly plans, on a random day of the period
-        switch = np.isin(cur_plan[idx], monthly_ids) & (rng.random(idx.size) < switch_rate)
-        switch_day = p_start + (rng.random(idx.size) * (p_end - p_start)).astype(np.int64)
-        switch &= ~leaves | (switch_day < cancel_day)
-        switch &= switch_day <= as_of
-        rise_now = on_rise & (~leaves | (cancel_day > rise_day))
-        first_rise = idx[rise_now]
-        cur_price[first_rise] = TRUTH["price_rise"]["new_price"]
-        emit(first_rise, np.full(first_rise.size, rise_day), "price_changed")
-        # the rise lifts the hazard from the next period on (periods starting on/after the date)
-        risen[first_rise] = True
-        sw = idx[switch]
-        if sw.size:
-            cur_plan[sw] = np.where(cur_plan[sw] == monthly_ids[0], monthly_ids[1], monthly_ids[0])
-            base = plan_price[cur_plan[sw]]
-            cur_price[sw] = np.where(
-                risen[sw] & (cur_plan[sw] == monthly_ids[0]), TRUTH["price_rise"]["new_price"], base
-            )
-            emit(sw, switch_day[switch], "plan_switched")
-        # cancellations
-        gone = leaves & (cancel_day <= as_of)
-        why = rng.choice(reasons.size, size=int(gone.sum()), p=reason_p)
-        emit(idx[gone], cancel_day[gone], "cancelled", why)
-        end[idx[gone]] = cancel_day[gone]
-        ended[idx[gone]] = True
-        active[idx[leaves]] = False  # cancelled (or will cancel after as-of: censored)
-        # renewal at the end of the period
-        stay = ~leaves & (p_end <= as_of)
-        active[idx[~leaves & (p_end > as_of)]] = False
-        r_idx, r_day = idx[stay], p_end[stay]
-        fails = rng.random(r_idx.size) < p_fail[r_idx]
-        recovers = rng.random(r_idx.size) < TRUTH["p_recover"]
-        emit(r_idx[~fails], r_day[~fails], "renewed")
-        emit(r_idx[fails], r_day[fails], "charge_failed")
-        rec = fails & recovers
-        rec_day = r_day[rec] + rng.integers(1, 14, int(rec.sum()))
-        emit(r_idx[rec], rec_day, "charge_recovered")
-        lost = fails & ~recovers
-        end[r_idx[lost]] = r_day[lost]
-        ended[r_idx[lost]] = True
-        active[r_idx[lost]] = False
-    return cols, end, ended
-
-
-def _signup_days(rng: np.random.Generator, n: int) -> np.ndarray:
-    """Signup dates with acquisition growing over the years (density rising linearly 1 → 3)."""
-    span = _to_days(AS_OF) - _to_days(BUSINESS_OPENS) + 1
-    u = rng.random(n)
-    x = (-1 + np.sqrt(1 + 8 * u)) / 2  # inverse CDF of density (1 + 2x)/2 on [0, 1]
-    return _to_days(BUSINESS_OPENS) + np.minimum((x * span).astype(np.int64), span - 1)
-
-
-def build_demo(path: str | Path, n_customers: int = 60_000, seed: int = 20261202) -> dict:
-    """Simulate the business and write it to a new DuckDB file at ``path`` (replaced if present).
-    Returns a small summary (customers, events, spells, ...)."""
-    t0 = time.perf_counter()
-    rng = np.random.default_rng(seed)
-    plans = list(TRUTH["plans"])
-    channels = list(TRUTH["channels"])
-    n = int(n_customers)
-    signup = np.sort(_signup_days(rng, n))
-    plan = rng.choice(len(plans), n, p=[TRUTH["plans"][p]["share"] for p in plans])
-    channel = rng.choice(len(channels), n, p=[TRUTH["channels"][c]["share"] for c in channels])
-    rise_cutoff = _to_days(dt.date(2023, 1, 1))
-
-    ev1, end1, ended1 = _simulate(rng, signup, plan, channel, "subscribed", rise_cutoff)
-    # reactivation: a share of churned customers return after a gap, as a fresh spell
-    r = TRUTH["reactivation"]
-    returns = ended1 & (rng.random(n) < r["share_of_churned"])
-    short = rng.random(n) < r["short_gap_share"]
-    gap = np.where(
-        short,
-        rng.integers(r["short_gap_days"][0], r["short_gap_days"][1] + 1, n),
-        30 + rng.exponential(120, n).astype(np.int64),
-    )
-    back = returns & (end1 + gap <= _to_days(AS_OF))
-    ret_idx = np.flatnonzero(back)
-    ev2, end2, ended2 = _simulate(
-        rng,
-        end1[ret_idx] + gap[ret_idx],
-        plan[ret_idx],
-        channel[ret_idx],
-        "resubscribed",
-        rise_cutoff,
-    )
-    ev2["row"] = [ret_idx[a] for a in ev2["row"]]
-
-    def stack(cols: dict[str, list[np.ndarray]]) -> dict[str, np.ndarray]:
-        return {k: np.concatenate(v) if v else np.array([]) for k, v in cols.items()}
-
-    e1, e2 = stack(ev1), stack(ev2)
-    ev = {k: np.concatenate([e1[k], e2[k]]) for k in e1}
-    log0, log1 = _to_days(LOG_START), _to_days(AS_OF)
-    keep = (ev["day"] >= log0) & (ev["day"] <= log1)
-    ev = {k: v[keep] for k, v in ev.items()}
-    # a few exact duplicate rows, as real exports have
-    n_dup = int(round(TRUTH["duplicate_row_share"] * ev["row"].size))
-    dup = rng.choice(ev["row"].size, n_dup, replace=False)
-    ev = {k: np.concatenate([v, v[dup]]) for k, v in ev.items()}
-    order = np.lexsort((ev["sec"], ev["day"], ev["row"]))
-    ev = {k: v[order] for k, v in ev.items()}
-
-    # accounts: the start of the spell in progress when the log begins (else the first signup)
-    second_start = np.full(n, np.iinfo(np.int64).max)
-    second_start[ret_idx] = end1[ret_idx] + gap[ret_idx]
-    first_open_at_log = (signup < log0) & (~ended1 | (end1 >= log0))
-    second_end = np.full(n, -1, dtype=np.int64)
-    second_end[ret_idx] = np.where(ended2, end2, np.iinfo(np.int64).max)
-    second_open_at_log = (second_start < log0) & (second_end >= log0) & ~first_open_at_log
-    first_paid = np.where(second_open_at_log, second_start, signup)
-
-    ts = ev["day"].astype("datetime64[D]").astype("datetime64[s]") + ev["sec"].astype(
-        "timedelta64[s]"
-    )
-    reasons = np.array(list(TRUTH["cancel_reasons"]) + [None], dtype=object)
-    events = pa.table(
-        {
-            "account_id": pa.array(ev["row"].astype(np.int64) + 100_001),
-            "occurred_at": pa.array(ts, type=pa.timestamp("s")),
-            "kind": pa.array(np.array(KINDS, dtype=object)[ev["kind"]]),
-            "plan_code": pa.array(np.array(plans, dtype=object)[ev["plan"]]),
-            "amount": pa.array(ev["price"].astype(np.float64)),
-            "reason": pa.array(reasons[ev["reason"]]),
-        }
-    )
-    accounts = pa.table(
-        {
-            "account_id": pa.array(np.arange(n, dtype=np.int64) + 100_001),
-            "first_paid_on": pa.array(first_paid.astype("datetime64[D]"), type=pa.date32()),
-            "acquisition_channel": pa.array(np.array(channels, dtype=object)[channel]),
-        }
-    )
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(path.name + ".building")
-    tmp.unlink(missing_ok=True)
-    con = duckdb.connect(str(tmp))
-    con.register("events_arrow", events)
-    con.register("accounts_arrow", accounts)
-    con.execute("CREATE TABLE subscription_events AS SELECT * FROM events_arrow")
-    con.execute("CREATE TABLE accounts AS SELECT * FROM accounts_arrow")
-    con.close()
-    tmp.replace(path)
-
-    summary = {
-        "customers": n,
-        "events": events.num_rows,
-        "duplicate_rows": n_dup,
-        "spells_simulated": n + int(ret_idx.size),
-        "reactivations": int(ret_idx.size),
-        "short_gap_reactivations": int((back & short).sum()),
-        "began_before_log_and_active_at_log_start": int(
-            (first_open_at_log | second_open_at_log).sum()
-        ),
-        "seed": seed,
-        "seconds": round(time.perf_counter() - t0, 2),
-    }
-    (path.parent / "truth.json").write_text(json.dumps({**TRUTH, "last_build": summary}, indent=2))
-    return summary
+    involuntary = (1.0 - p["p_fail"] * (1.0 - p["p_recover"])) ** np.maximum(k - 1.0, 0.0)
+    return voluntary * involuntary
 
 
 def main(argv: list[str] | None = None) -> int:
-    args = sys.argv[1:] if argv is None else argv
-    out = Path(args[0]) if args else Path("tidewell.duckdb")
-    print(json.dumps(build_demo(out), indent=2))
+    parser = argparse.ArgumentParser(
+        prog="python -m churnlife.demo.generate",
+        description=f"Build the {BUSINESS} demo database (DuckDB) and its truth.json.",
+    )
+    parser.add_argument(
+        "out", nargs="?", default="tidewell.duckdb", help="the DuckDB file to write"
+    )
+    parser.add_argument("--customers", type=int, default=60_000, help="customers to simulate")
+    parser.add_argument("--seed", type=int, default=20261202, help="random seed")
+    parser.add_argument(
+        "--truth", default=None, help="where to write truth.json (default: beside the database)"
+    )
+    args = parser.parse_args(argv)
+    t0 = time.perf_counter()
+    info = build_demo(args.out, n_customers=args.customers, seed=args.seed, truth_path=args.truth)
+    info["seconds"] = round(time.perf_counter() - t0, 2)
+    print(json.dumps(info, indent=2))
     return 0
 
 
 if __name__ == "__main__":
-    sys.exit(main())
+    raise SystemExit(main())

@@ -86,7 +86,7 @@ def test_counts_fit_equals_per_customer_likelihood_on_spells(demo_extract):
     sp = demo_extract.spells().filter(demo_extract.spells()["plan"] == PLAN)
     entry = sp["entry_t"].to_numpy().astype(float)
     exit_t = sp["exit_t"].to_numpy().astype(float)
-    churned = sp["churned"].to_numpy()
+    churned = sp["churn_counted"].to_numpy()
     assert entry.max() > 0  # late entrants are in this cohort
 
     def per_customer(shape, scale):

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import polars as pl
 
-from churnlife.charts import retention_curves
+from churnlife.charts import MIN_AT_RISK, retention_curves
 from churnlife.km import KaplanMeierResult
 from churnlife.report import Chart, Section, Table
 
@@ -29,8 +29,8 @@ def retention_section(km: KaplanMeierResult, unit: str, retention_at: tuple[int,
                 retention_curves(km, unit),
                 "retention_curves",
                 caption=f"Share of each cohort still subscribed by tenure, with {pct}% pointwise "
-                f"{km.interval} intervals (Greenwood variance). Curves end at the longest tenure "
-                "observed.",
+                f"{km.interval} intervals (Greenwood variance). Curves are drawn to the longest "
+                f"tenure observed while at least {MIN_AT_RISK} customers are still at risk.",
             ),
             Table(
                 wide,
