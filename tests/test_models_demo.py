@@ -5,7 +5,8 @@ protocol the value stage relies on, and the API/CLI/report wiring.
 Sources: the true model is the demo generator's (demo/truth.json; demo/generate.py
 true_period_survival, the share of new customers whose first spell lasts at least k billing
 periods). A cohort by plan mixes the channels, so its true survival is the channel-share
-mixture Σ_c share_c S_c(k) (acquisition channel_mix). beans_plus_monthly is used because no price rise touches it.
+mixture Σ_c share_c S_c(k) (acquisition channel_mix). beans_plus_monthly is used because no
+price rise touches it.
 """
 
 from __future__ import annotations
