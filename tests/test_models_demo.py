@@ -5,7 +5,8 @@ protocol the value stage relies on, and the API/CLI/report wiring.
 Sources: the true model is the demo generator's (demo/truth.json; demo/generate.py
 true_period_survival, the share of new customers whose first spell lasts at least k billing
 periods). A cohort by plan mixes the channels, so its true survival is the channel-share
-mixture Σ_c share_c S_c(k). beans_plus_monthly is used because no price rise touches it.
+mixture Σ_c share_c S_c(k) (acquisition channel_mix). beans_plus_monthly is used because no
+price rise touches it.
 """
 
 from __future__ import annotations
@@ -31,15 +32,15 @@ def _truth(root):
 
 
 def _true_survival(truth, plan, k):
-    return sum(
-        c["share"] * true_period_survival(truth, plan, ch, k) for ch, c in truth["channels"].items()
-    )
+    mix = truth["acquisition"]["channel_mix"]  # drawn independently of the plan
+    return sum(share * true_period_survival(truth, plan, ch, k) for ch, share in mix.items())
 
 
 @pytest.fixture(scope="module")
 def demo_models(demo_extract):
     return fit_models(
-        demo_extract.counts, models=("weibull", "gengamma", "spline2", "bdw", "sbg", "piecewise")
+        demo_extract.counts,
+        models=("weibull", "gengamma", "spline2", "bdw", "cure_weibull", "sbg", "piecewise"),
     )
 
 
@@ -51,12 +52,14 @@ def test_true_survival_and_hazard_inside_the_bands(demo_models):
     s_true = _true_survival(truth, PLAN, k)
     q_true = 1 - s_true[1:] / s_true[:-1]  # period hazard of tenures 1..39
     idx = CHECK_AT.astype(int)
-    for name in ("weibull", "gengamma", "spline2", "bdw"):
+    for name in ("weibull", "gengamma", "spline2", "bdw", "cure_weibull", "piecewise"):
         fit = demo_models.get(PLAN, name)
         _s, lo, hi, _q, qlo, qhi = delta_band(fit, CHECK_AT)
         assert np.all((lo <= s_true[idx]) & (s_true[idx] <= hi)), name
         inside_q = (qlo <= q_true[idx - 1]) & (q_true[idx - 1] <= qhi)
-        assert inside_q.sum() >= len(CHECK_AT) - 1, name  # pointwise 95%: allow one miss
+        # pointwise 95% bands of models that are close to, not equal to, the true form (a
+        # channel mixture of cure-Weibulls times renewal failures): allow two misses in six
+        assert inside_q.sum() >= len(CHECK_AT) - 2, name
     best = demo_models.best(PLAN)
     _s, lo, hi, *_ = delta_band(best, CHECK_AT)
     assert np.all((lo <= s_true[idx]) & (s_true[idx] <= hi)), best.name
@@ -86,7 +89,7 @@ def test_counts_fit_equals_per_customer_likelihood_on_spells(demo_extract):
     sp = demo_extract.spells().filter(demo_extract.spells()["plan"] == PLAN)
     entry = sp["entry_t"].to_numpy().astype(float)
     exit_t = sp["exit_t"].to_numpy().astype(float)
-    churned = sp["churned"].to_numpy()
+    churned = sp["churn_counted"].to_numpy()
     assert entry.max() > 0  # late entrants are in this cohort
 
     def per_customer(shape, scale):
