@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import datetime as dt
 import json
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -18,6 +19,7 @@ from churnlife import __version__
 from churnlife.config import Config
 from churnlife.extract import Extract, run_extract
 from churnlife.km import KaplanMeierResult, kaplan_meier
+from churnlife.models.suite import DEFAULT_MODELS
 from churnlife.notes import (
     Note,
     collect,
@@ -31,6 +33,7 @@ from churnlife.outputs import atomic_folder
 from churnlife.quality import anomaly_table
 from churnlife.report import Section, charts_in, render
 from churnlife.sections.comparison import Comparison, compare_cohorts, comparison_section
+from churnlife.sections.models import model_results
 from churnlife.sections.overview import cautions_section, data_section, settings_section
 from churnlife.sections.quality import notes_section, quality_section
 from churnlife.sections.retention import retention_section
@@ -47,6 +50,7 @@ class Analysis:
     comparison: Comparison | None = None
     sections: list[Section] = field(default_factory=list)
     tables: dict[str, pl.DataFrame] = field(default_factory=dict)
+    models: Any = None  # churnlife.models.suite.HazardModels, when models were fitted
     notes: list[Note] = field(default_factory=list)  # warnings for the reader (churnlife.notes)
 
     @property
@@ -73,8 +77,17 @@ def _plain(value: Any) -> Any:
     return int(value) if float(value).is_integer() else float(value)
 
 
-def analyse(config: Config) -> Analysis:
-    """Run the extract and the estimators for ``config``; nothing is written anywhere."""
+def analyse(
+    config: Config,
+    models: Sequence[str] | None = DEFAULT_MODELS,
+    horizon: int | None = None,
+    band: str = "delta",
+) -> Analysis:
+    """Run the extract and the estimators for ``config``; nothing is written anywhere.
+
+    ``models``: hazard models to fit per cohort (churnlife.models.suite.MODEL_NAMES; None or ()
+    for none); ``horizon`` and ``band`` set their extrapolation (default twice the longest
+    observed tenure, delta-method bands)."""
     source = open_source(config)
     extract = run_extract(config, source)
     km = kaplan_meier(extract.counts, config.confidence, config.interval)
@@ -103,6 +116,14 @@ def analyse(config: Config) -> Analysis:
         retention_section(km, config.tenure_unit, config.retention_at),
         comparison_section(comparison),
     ]
+    if models:
+        fitted, model_tables, section = model_results(
+            extract.counts, config.tenure_unit, config.confidence, config.retention_at,
+            models, horizon, band,
+        )
+        analysis.models = fitted
+        analysis.tables.update(model_tables)
+        results.append(section)
     # Every NaN in a table or chart gets a note (churnlife.notes): known ones first, then a
     # generic warning for anything no note explains.
     notes = km_notes(km, config.tenure_unit)
