@@ -15,8 +15,10 @@ converge, that an estimate sits on a boundary, or that the information matrix is
 
 from __future__ import annotations
 
+import contextlib
 import math
-from collections.abc import Iterable, Sequence
+import warnings
+from collections.abc import Iterable, Iterator, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -324,6 +326,48 @@ def unexplained_values(
                 )
             )
     return out
+
+
+class NumericWarnings:
+    """What ``numeric_warnings`` caught: ``messages`` (distinct, in order) and ``count``."""
+
+    def __init__(self) -> None:
+        self.messages: list[str] = []
+        self.count = 0
+
+    def note(self, stage: str) -> list[Note]:
+        """One info note for the reader, or none if nothing was caught."""
+        if not self.count:
+            return []
+        shown = "; ".join(self.messages[:3])
+        return [
+            info(
+                "numerics",
+                f"While {stage}, the arithmetic hit {self.count} floating-point overflow(s) or "
+                f"undefined value(s) ({shown}). These arise at extreme trial values during a "
+                "search; each result's own checks decide what is shown, and results that failed "
+                "them carry their own warning here.",
+            )
+        ]
+
+
+@contextlib.contextmanager
+def numeric_warnings() -> Iterator[NumericWarnings]:
+    """Catch numpy's RuntimeWarnings (overflow, invalid value, divide by zero) raised inside the
+    block, so they reach the reader as a note instead of as raw lines on the terminal. Other
+    warnings are passed on unchanged."""
+    caught = NumericWarnings()
+    with warnings.catch_warnings(record=True) as records:
+        warnings.simplefilter("always")
+        yield caught
+    for w in records:
+        if issubclass(w.category, RuntimeWarning):
+            caught.count += 1
+            text = str(w.message)
+            if text not in caught.messages:
+                caught.messages.append(text)
+        else:
+            warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
 
 
 def json_safe(value: Any) -> Any:

@@ -22,10 +22,12 @@ from churnlife.km import KaplanMeierResult, kaplan_meier
 from churnlife.models.suite import DEFAULT_MODELS
 from churnlife.notes import (
     Note,
+    NumericWarnings,
     collect,
     fit_notes,
     json_safe,
     km_notes,
+    numeric_warnings,
     runaway,
     unexplained_values,
 )
@@ -91,9 +93,10 @@ def analyse(
     source = open_source(config)
     extract = run_extract(config, source)
     km = kaplan_meier(extract.counts, config.confidence, config.interval)
-    comparison = compare_cohorts(
-        extract.counts, config.cohorts, horizon=float(max(config.retention_at))
-    )
+    with numeric_warnings() as comparing:
+        comparison = compare_cohorts(
+            extract.counts, config.cohorts, horizon=float(max(config.retention_at))
+        )
     analysis = Analysis(config, extract, km, comparison)
     analysis.tables = {
         "counts": extract.counts,
@@ -116,11 +119,13 @@ def analyse(
         retention_section(km, config.tenure_unit, config.retention_at),
         comparison_section(comparison),
     ]
+    fitting = NumericWarnings()
     if models:
-        fitted, model_tables, section = model_results(
-            extract.counts, config.tenure_unit, config.confidence, config.retention_at,
-            models, horizon, band,
-        )
+        with numeric_warnings() as fitting:
+            fitted, model_tables, section = model_results(
+                extract.counts, config.tenure_unit, config.confidence, config.retention_at,
+                models, horizon, band,
+            )
         analysis.models = fitted
         analysis.tables.update(model_tables)
         results.append(section)
@@ -136,6 +141,9 @@ def analyse(
             covariance=cox.cov,
             table="hazard_ratios",
         )
+    if analysis.models is not None:
+        notes += _model_notes(analysis.models)
+    notes += comparing.note("comparing cohorts") + fitting.note("fitting the hazard models")
     specs = {c.name: c.chart.to_dict() for c in charts_in(results)}
     notes = collect(
         notes,
@@ -144,6 +152,30 @@ def analyse(
     analysis.notes = notes
     analysis.sections = [*results[:3], notes_section(notes), *results[3:], cautions_section(config)]
     return analysis
+
+
+def _model_notes(models: Any) -> list[Note]:
+    """Warnings for hazard-model fits: not converged (the optimiser's reason), estimates whose
+    SE could not be computed (singular information), and models that could not be fitted."""
+    out: list[Note] = []
+    for f in models.fits:  # cohorts × models, a few dozen
+        se = f.estimates()["se"].to_numpy()
+        out += fit_notes(
+            f"{f.name} model",
+            f.convergence.converged,
+            f.convergence.message,
+            at_boundary=runaway(list(f.estimates()["parameter"]), se, limit=float("inf"))
+            if f.convergence.converged
+            else (),
+            covariance=f.cov if f.convergence.converged else None,  # else already said
+            cohort=f.cohort,
+            table="model_parameters",
+        )
+    for cohort, model, reason in models.failures:
+        out.append(
+            Note("warning", "fit", f"The {model} model could not be fitted: {reason}.", cohort)
+        )
+    return out
 
 
 def write_outputs(analysis: Analysis, folder: Path | None = None) -> Path:

@@ -132,6 +132,7 @@ def test_case_as_a_program(case: Case, tmp_path: Path):
         assert _tree(outputs) == outputs_before
     else:
         _check_run(case, proc.returncode, proc.stderr, out)
+        assert proc.stderr == "", "a successful run printed to stderr (raw warnings?)"
     assert _tree(tmp_path / "data") == source_before
 
 

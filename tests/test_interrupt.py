@@ -134,7 +134,8 @@ def test_interrupt_leaves_previous_output(tmp_path, patch, where):
     source_before = _tree(tmp_path / "data")
     code, stderr = _interrupt(patch, config, out)
     assert code == 130, f"{where}: {stderr}"
-    assert _one_clean_line(stderr).startswith("churnlife: interrupted; the output folder was left")
+    line = _one_clean_line(stderr)
+    assert line.startswith("churnlife: interrupted; the output folder was left"), line
     assert _tree(out) == before, f"{where}: the previous output changed"
     assert sorted(p.name for p in out.parent.iterdir()) == ["report"], "temporary folder left"
     assert _tree(tmp_path / "data") == source_before

@@ -28,6 +28,7 @@ from churnlife.notes import (
     information_problem,
     json_safe,
     km_notes,
+    numeric_warnings,
     runaway,
     unexplained_values,
     warning,
@@ -169,3 +170,21 @@ def test_report_of_a_log_where_everyone_churns(tmp_path):
     specs = specs[: specs.index("\n")]
     assert "NaN" not in specs and "Infinity" not in specs
     assert "retention is 0 from there on" in html and "Warnings and notes" in html
+
+
+def test_numeric_warnings_become_one_note_and_others_pass_through():
+    import warnings
+
+    with warnings.catch_warnings(record=True) as outside:
+        warnings.simplefilter("always")
+        with numeric_warnings() as caught:
+            np.exp(np.array([1000.0, 2000.0]))
+            np.log(np.array([-1.0]))
+            warnings.warn("kept", DeprecationWarning, stacklevel=1)
+    assert [str(w.message) for w in outside] == ["kept"]
+    assert caught.count == 2 and "overflow encountered in exp" in caught.messages[0]
+    (note,) = caught.note("fitting the hazard models")
+    assert note.level == "info" and "2 floating-point" in note.text
+    with numeric_warnings() as none:
+        np.exp(1.0)
+    assert none.note("x") == []
