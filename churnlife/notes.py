@@ -352,11 +352,11 @@ class NumericWarnings:
 
 
 @contextlib.contextmanager
-def numeric_warnings() -> Iterator[NumericWarnings]:
+def numeric_warnings(into: NumericWarnings | None = None) -> Iterator[NumericWarnings]:
     """Catch numpy's RuntimeWarnings (overflow, invalid value, divide by zero) raised inside the
     block, so they reach the reader as a note instead of as raw lines on the terminal. Other
-    warnings are passed on unchanged."""
-    caught = NumericWarnings()
+    warnings are passed on unchanged. ``into`` adds to an earlier block's catch."""
+    caught = into if into is not None else NumericWarnings()
     with warnings.catch_warnings(record=True) as records:
         warnings.simplefilter("always")
         yield caught

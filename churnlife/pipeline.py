@@ -93,7 +93,8 @@ def analyse(
     source = open_source(config)
     extract = run_extract(config, source)
     km = kaplan_meier(extract.counts, config.confidence, config.interval)
-    with numeric_warnings() as comparing:
+    comparing, fitting = NumericWarnings(), NumericWarnings()
+    with numeric_warnings(comparing):
         comparison = compare_cohorts(
             extract.counts, config.cohorts, horizon=float(max(config.retention_at))
         )
@@ -106,22 +107,23 @@ def analyse(
         "data_quality": anomaly_table(extract.summary),
     }
     if comparison is not None:
-        analysis.tables["cohort_tests"] = comparison.tests_table()
-        analysis.tables["cohort_pairs"] = comparison.pairwise
-        if comparison.cox is not None:
-            analysis.tables["hazard_ratios"] = comparison.cox.to_polars()
-        if comparison.restricted is not None:
-            analysis.tables["restricted_mean"] = comparison.restricted.to_polars()
-    results = [
-        settings_section(config),
-        data_section(extract.summary),
-        quality_section(extract.summary),
-        retention_section(km, config.tenure_unit, config.retention_at),
-        comparison_section(comparison),
-    ]
-    fitting = NumericWarnings()
+        with numeric_warnings(comparing):  # the tables take exp() of the estimates
+            analysis.tables["cohort_tests"] = comparison.tests_table()
+            analysis.tables["cohort_pairs"] = comparison.pairwise
+            if comparison.cox is not None:
+                analysis.tables["hazard_ratios"] = comparison.cox.to_polars()
+            if comparison.restricted is not None:
+                analysis.tables["restricted_mean"] = comparison.restricted.to_polars()
+    with numeric_warnings(comparing):
+        results = [
+            settings_section(config),
+            data_section(extract.summary),
+            quality_section(extract.summary),
+            retention_section(km, config.tenure_unit, config.retention_at),
+            comparison_section(comparison),
+        ]
     if models:
-        with numeric_warnings() as fitting:
+        with numeric_warnings(fitting):
             fitted, model_tables, section = model_results(
                 extract.counts, config.tenure_unit, config.confidence, config.retention_at,
                 models, horizon, band,
@@ -142,7 +144,8 @@ def analyse(
             table="hazard_ratios",
         )
     if analysis.models is not None:
-        notes += _model_notes(analysis.models)
+        with numeric_warnings(fitting):
+            notes += _model_notes(analysis.models)
     notes += comparing.note("comparing cohorts") + fitting.note("fitting the hazard models")
     specs = {c.name: c.chart.to_dict() for c in charts_in(results)}
     notes = collect(

@@ -15,6 +15,7 @@ import hashlib
 import json
 import subprocess
 import sys
+import warnings
 from pathlib import Path
 
 import pytest
@@ -97,9 +98,12 @@ def test_case_in_process(case: Case, tmp_path: Path, capsys, monkeypatch):
     if case.patch is not None:
         case.patch(monkeypatch, tmp_path)
     ctx = case.context(tmp_path / "data") if case.context else contextlib.nullcontext()
-    with ctx:
+    with ctx, warnings.catch_warnings(record=True) as raw:
+        warnings.simplefilter("always")
         code = main(_args(case, config, out))
     stderr = capsys.readouterr().err
+    # numeric trouble reaches the reader as a note, never as a raw warning on the terminal
+    assert [str(w.message) for w in raw if issubclass(w.category, RuntimeWarning)] == []
     if case.stop:
         _check_stop(case, code, stderr)
         assert _tree(outputs) == outputs_before, "a failed run changed the output folder"
