@@ -163,9 +163,7 @@ def _design(
         series = risk[cov]
         if _is_categorical(series):
             values = series.cast(pl.String).fill_null("(none)")
-            all_levels = sorted(
-                counts[cov].cast(pl.String).fill_null("(none)").unique().to_list()
-            )
+            all_levels = sorted(counts[cov].cast(pl.String).fill_null("(none)").unique().to_list())
             ref = reference.get(cov) or _reference_level(counts, cov, all_levels)
             if ref not in all_levels:
                 raise UserError(
@@ -406,7 +404,7 @@ class CoxResult:
     def tests_table(self) -> pl.DataFrame:
         return pl.DataFrame(
             {
-                "test": ["likelihood ratio", "Wald", "score (log-rank)"],
+                "test": ["likelihood ratio", "Wald", "score"],
                 "chi_square": [self.lr_test, self.wald_test, self.score_test],
                 "df": [self.df] * 3,
                 "p": [self.lr_p, self.wald_p, self.score_p],
@@ -471,8 +469,7 @@ def _ph_verdict(table: pl.DataFrame, n_events: int) -> str:
     return (
         f"The hazard ratios for {', '.join(flagged)} appear to change with tenure (p < 0.05 in "
         "the Grambsch–Therneau test): read them as averages over the tenures observed, not as "
-        "a constant ratio, and look at the retention curves to see where the cohorts differ."
-        + big
+        "a constant ratio, and look at the retention curves to see where the cohorts differ." + big
     )
 
 
@@ -505,7 +502,7 @@ def cox_fit(
         raise UserError("confidence must be between 0 and 1.")
     _validate(counts, covariates, strata, ties)
     design = _design(counts, covariates, strata, reference or {})
-    beta, ll, grad, hess, iters, converged = _newton(design, design.x, ties)
+    beta, ll, _grad, hess, iters, converged = _newton(design, design.x, ties)
     info = -hess
     try:
         cov = np.linalg.inv(info)

@@ -174,7 +174,9 @@ def restricted_mean(
     """
     z = _z(confidence)
     if not np.isfinite(horizon) or horizon <= 0:
-        raise UserError(f"the RMST horizon must be a positive number of tenure units, not {horizon}.")
+        raise UserError(
+            f"the RMST horizon must be a positive number of tenure units, not {horizon}."
+        )
     names, areas, variances, sizes, last = [], [], [], [], []
     for cohort, t, n, d in _cohort_arrays(counts):
         area, var = _rmst_one(t, n, d, horizon)

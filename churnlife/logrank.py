@@ -124,8 +124,15 @@ def _score(n: np.ndarray, d: np.ndarray, weight: str, rho: float, gamma: float):
 def _chi2(u: np.ndarray, v: np.ndarray) -> tuple[float, int]:
     # drop the last cohort: the k scores sum to zero
     uu, vv = u[:-1], v[:-1, :-1]
-    stat = float(uu @ np.linalg.solve(vv, uu)) if uu.size else 0.0
-    return stat, uu.size
+    if not uu.size:
+        return 0.0, 0
+    try:
+        return float(uu @ np.linalg.solve(vv, uu)), uu.size
+    except np.linalg.LinAlgError:
+        # Cohorts never at risk at the same churn tenures (e.g. signup quarters years apart)
+        # carry no comparison: a generalised inverse, with df its rank (as survdiff does).
+        rank = int(np.linalg.matrix_rank(vv))
+        return (float(uu @ np.linalg.pinv(vv) @ uu) if rank else 0.0), rank
 
 
 def _validate(counts: pl.DataFrame, weight: str, rho: float, gamma: float) -> None:
@@ -191,7 +198,7 @@ def logrank_test(
         exp,
         stat,
         df,
-        float(stats.chi2.sf(stat, df)),
+        float(stats.chi2.sf(stat, df)) if df else float("nan"),
         tuple(levels),
     )
 

@@ -1,0 +1,254 @@
+"""Compare cohorts: every comparison this stage makes, run on counts from one extract.
+
+``compare_cohorts`` answers "do these cohorts retain differently, by how much, and is it more
+than noise?" with the log-rank family (churnlife.logrank), a Cox model on the counts
+(churnlife.cox), churn by cause (churnlife.causes), Nelson–Aalen and restricted mean tenure
+(churnlife.hazard), and a signup-cohort × tenure retention grid. Each piece re-counts the staged
+spells inside the engine (``Extract.counts_by``), so nothing here grows with customers.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import polars as pl
+
+from churnlife.causes import CauseResult, cumulative_incidence
+from churnlife.config import COHORT_KEYS
+from churnlife.cox import CoxResult, cox_fit
+from churnlife.errors import UserError, did_you_mean
+from churnlife.extract import Extract
+from churnlife.hazard import (
+    NelsonAalenResult,
+    RestrictedMeanResult,
+    default_horizon,
+    nelson_aalen,
+    restricted_mean,
+)
+from churnlife.km import kaplan_meier
+from churnlife.logrank import LogRankResult, TrendResult, logrank_test, pairwise_tests, trend_test
+
+ORDERED_KEYS = ("signup_month", "signup_quarter", "signup_year")
+# (label, weight, rho, gamma, what it emphasises)
+TEST_FAMILY = (
+    ("log-rank", "logrank", 0.0, 0.0, "every tenure equally"),
+    ("Gehan–Breslow (Wilcoxon)", "gehan-breslow", 0.0, 0.0, "early tenures (most at risk)"),
+    ("Tarone–Ware", "tarone-ware", 0.0, 0.0, "early tenures, less strongly"),
+    ("Peto–Peto–Prentice", "peto-peto", 0.0, 0.0, "early tenures, by the pooled retention"),
+    ("Fleming–Harrington (0, 1)", "fleming-harrington", 0.0, 1.0, "late tenures"),
+)
+HEATMAP_MAX_TENURES = 48
+HEATMAP_MIN_AT_RISK = 10
+
+
+def parse_by(text: str | list[str] | tuple[str, ...]) -> tuple[str, ...]:
+    """Cohort attributes from "plan,channel" (or a list), validated against churnlife's list."""
+    items = [t.strip() for t in text.split(",")] if isinstance(text, str) else list(text)
+    items = [t for t in items if t]
+    for item in items:
+        if item not in COHORT_KEYS:
+            raise UserError(
+                f'"{item}" is not a cohort attribute.{did_you_mean(item, COHORT_KEYS)} Choose from '
+                f"{', '.join(COHORT_KEYS)}."
+            )
+    if len(set(items)) != len(items):
+        raise UserError(f"cohort attributes repeat in {items}; name each once.")
+    return tuple(items)
+
+
+def _label(by: tuple[str, ...]) -> pl.Expr:
+    """The cohort label queries/counts.sql builds, for the ``by`` attributes alone."""
+    parts = [pl.col(c).cast(pl.String).fill_null("(none)") for c in by]
+    return pl.concat_str(parts, separator=" · ") if len(parts) > 1 else parts[0]
+
+
+@dataclass(frozen=True)
+class Comparison:
+    """Everything ``compare_cohorts`` found.
+
+    Attributes
+    ----------
+    by, strata : the cohort attributes compared, and the attribute compared within (or None).
+    counts : counts per ``by`` cohort × tenure.
+    tests : the k-sample test family (test, emphasis, chi_square, df, p), with the stratified and
+        trend tests when they apply.
+    logrank : the plain log-rank test (observed and expected churn per cohort).
+    pairwise : every pair of cohorts, log-rank p with Holm and Bonferroni adjustment.
+    trend : test for a trend across time-ordered cohorts (signup month/quarter/year), else None.
+    stratified : the log-rank test within levels of ``strata``, else None.
+    cox : Cox model with each ``by`` attribute as a categorical covariate (``strata`` as strata),
+        or None when there is one cohort attribute level only.
+    nelson_aalen, rmst, causes : per-cohort Nelson–Aalen, restricted mean tenure to ``horizon``
+        (with contrasts to a reference cohort) and churn by cause.
+    heatmap : cohort, tenure, retention, at_risk: Kaplan–Meier retention for each signup cohort
+        (``heatmap_by``) while at least 10 customers are at risk.
+    """
+
+    by: tuple[str, ...]
+    strata: str | None
+    horizon: float
+    counts: pl.DataFrame
+    tests: pl.DataFrame
+    logrank: LogRankResult
+    pairwise: pl.DataFrame
+    trend: TrendResult | None
+    stratified: LogRankResult | None
+    cox: CoxResult | None
+    nelson_aalen: NelsonAalenResult
+    rmst: RestrictedMeanResult
+    causes: CauseResult
+    heatmap: pl.DataFrame
+    heatmap_by: str
+    notes: tuple[str, ...] = ()
+
+    def tables(self) -> dict[str, pl.DataFrame]:
+        """Tables for the output folder (CSV and Parquet), by file stem."""
+        out = {
+            "compare_tests": self.tests,
+            "compare_observed_expected": self.logrank.to_polars(),
+            "compare_pairwise": self.pairwise,
+            "nelson_aalen": self.nelson_aalen.to_polars(),
+            "rmst": self.rmst.estimates,
+            "rmst_contrasts": self.rmst.contrasts,
+            "churn_by_cause": self.causes.incidence,
+            "cause_specific_hazards": self.causes.hazards,
+            "churn_cause_shares": self.causes.shares(self.horizon),
+            "retention_heatmap": self.heatmap,
+        }
+        if self.cox is not None:
+            out["cox_hazard_ratios"] = self.cox.to_polars()
+            out["cox_tests"] = self.cox.tests_table()
+            out["cox_terms"] = self.cox.terms
+            out["cox_baseline"] = self.cox.baseline
+            if self.cox.ph_check is not None:
+                out["cox_ph_check"] = self.cox.ph_check.table
+        return out
+
+
+def _tests_table(
+    counts: pl.DataFrame, trend: TrendResult | None, stratified: LogRankResult | None
+) -> tuple[pl.DataFrame, LogRankResult]:
+    rows = []
+    plain = None
+    for label, weight, rho, gamma, emphasis in TEST_FAMILY:
+        r = logrank_test(counts, weight=weight, rho=rho, gamma=gamma)
+        plain = plain or r
+        rows.append((label, emphasis, r.statistic, r.df, r.pvalue))
+    if stratified is not None:
+        rows.append(
+            (
+                f"log-rank within {', '.join(stratified.strata[:6])}"
+                + (" …" if len(stratified.strata) > 6 else ""),
+                "every tenure, each stratum its own risk sets",
+                stratified.statistic,
+                stratified.df,
+                stratified.pvalue,
+            )
+        )
+    if trend is not None:
+        rows.append(
+            ("trend across signup order", "a steady rise or fall", trend.statistic, 1, trend.pvalue)
+        )
+    table = pl.DataFrame(
+        {
+            "test": [r[0] for r in rows],
+            "emphasis": [r[1] for r in rows],
+            "chi_square": [r[2] for r in rows],
+            "df": [r[3] for r in rows],
+            "p": [r[4] for r in rows],
+        }
+    )
+    assert plain is not None
+    return table, plain
+
+
+def retention_grid(counts: pl.DataFrame, min_at_risk: int = HEATMAP_MIN_AT_RISK) -> pl.DataFrame:
+    """Kaplan–Meier retention per cohort × tenure, kept while ``min_at_risk`` are at risk, on at
+    most 48 tenures (every tenure if there are that few, else evenly spaced ones)."""
+    km = kaplan_meier(counts)
+    table = km.to_polars().filter((pl.col("tenure") > 0) & (pl.col("at_risk") >= min_at_risk))
+    tenures = np.unique(table["tenure"].to_numpy())
+    if tenures.size > HEATMAP_MAX_TENURES:
+        keep = np.unique(np.linspace(tenures[0], tenures[-1], HEATMAP_MAX_TENURES).round())
+        table = table.filter(pl.col("tenure").is_in(keep.astype(np.int64).tolist()))
+    return table.select("cohort", "tenure", pl.col("survival").alias("retention"), "at_risk")
+
+
+def compare_cohorts(
+    extract: Extract,
+    by: tuple[str, ...] | list[str] | None = None,
+    strata: str | None = None,
+    ties: str = "efron",
+    horizon: float | None = None,
+    confidence: float = 0.95,
+    preferred_horizons: tuple[int, ...] = (12, 6, 3, 1),
+) -> Comparison:
+    """Run every cohort comparison on one extract.
+
+    Parameters
+    ----------
+    extract : the run's extract (its staged spells are re-counted for each grouping).
+    by : cohort attributes (default: the config's ``[cohorts] by``). With two or more, the
+        tests compare their combinations and the Cox model has one categorical term each.
+    strata : an attribute to compare within (stratified log-rank; Cox strata).
+    ties : Cox tie handling, "efron" or "breslow".
+    horizon : RMST horizon in tenure units (default: the largest of ``preferred_horizons``
+        every cohort has reached).
+    """
+    by = parse_by(list(by) if by is not None else list(extract.cohort_columns))
+    if not by:
+        raise UserError(
+            "nothing to compare: name cohort attributes with --by (e.g. --by plan,channel) or "
+            "under [cohorts] by in the config."
+        )
+    if strata is not None:
+        (strata,) = parse_by([strata])
+        if strata in by:
+            raise UserError(f"--strata {strata} is also in --by; compare within another attribute.")
+    counts = extract.counts if tuple(extract.cohort_columns) == by else extract.counts_by(list(by))
+    n_cohorts = counts["cohort"].n_unique()
+    if n_cohorts < 2:
+        raise UserError(
+            f"{', '.join(by)} has one cohort only in this data: nothing to compare. Choose other "
+            "attributes with --by."
+        )
+    ordered = len(by) == 1 and by[0] in ORDERED_KEYS
+    trend = None
+    if ordered:
+        names = sorted(counts["cohort"].unique().to_list())
+        trend = trend_test(counts, names)
+    stratified = None
+    cox_counts = counts
+    if strata is not None:
+        cox_counts = extract.counts_by([*by, strata])
+        relabelled = cox_counts.with_columns(_label(by).alias("cohort"))
+        stratified = logrank_test(relabelled, strata=strata)
+    tests, plain = _tests_table(counts, trend, stratified)
+    notes: list[str] = []
+    try:
+        cox = cox_fit(cox_counts, list(by), strata=strata, ties=ties, confidence=confidence)
+    except UserError as err:  # the tests and curves still stand without hazard ratios
+        cox = None
+        notes.append(f"No hazard ratios: {err}")
+    horizon = float(horizon) if horizon is not None else default_horizon(counts, preferred_horizons)
+    heat_key = next((k for k in by if k in ORDERED_KEYS), "signup_quarter")
+    heat_counts = counts if by == (heat_key,) else extract.counts_by([heat_key])
+    return Comparison(
+        by=by,
+        strata=strata,
+        horizon=horizon,
+        counts=counts,
+        tests=tests,
+        logrank=plain,
+        pairwise=pairwise_tests(counts),
+        trend=trend,
+        stratified=stratified,
+        cox=cox,
+        nelson_aalen=nelson_aalen(counts, confidence),
+        rmst=restricted_mean(counts, horizon, confidence),
+        causes=cumulative_incidence(counts, confidence=confidence),
+        heatmap=retention_grid(heat_counts),
+        heatmap_by=heat_key,
+        notes=tuple(notes),
+    )
