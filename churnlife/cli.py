@@ -22,6 +22,7 @@ examples:
   churnlife check --config my.toml        validate a config against the data; write nothing
   churnlife run --config my.toml          analyse; write tables, charts and report.html
   churnlife run --config my.toml --output out/2026-12
+  churnlife compare --config my.toml --by plan,channel --strata signup_year
 """
 
 
@@ -62,6 +63,25 @@ def _parser() -> argparse.ArgumentParser:
         cmd.add_argument("--config", required=True, help="path of the TOML config")
         if name == "run":
             cmd.add_argument("--output", help="output folder (default: [output] folder)")
+    cmp = sub.add_parser(
+        "compare",
+        help="compare cohorts: tests, hazard ratios, restricted mean tenure, churn by cause",
+        description="Compare cohorts of the log named in a config: log-rank family, a Cox model "
+        "on the survival counts, restricted mean tenure and churn by cause. Prints the results; "
+        "with --output also writes the full output folder (tables, charts, report.html).",
+        epilog="examples:\n  churnlife compare --config churnlife-demo/churnlife.toml --by "
+        "plan,channel\n  churnlife compare --config my.toml --by plan --strata channel "
+        "--horizon 12 --output out",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    cmp.add_argument("--config", required=True, help="path of the TOML config")
+    cmp.add_argument(
+        "--by", help="cohort attributes, comma-separated (default: the config's [cohorts] by)"
+    )
+    cmp.add_argument("--strata", help="an attribute to compare within (e.g. channel)")
+    cmp.add_argument("--ties", choices=["efron", "breslow"], default="efron", help="Cox ties")
+    cmp.add_argument("--horizon", type=float, help="restricted mean tenure horizon (tenure units)")
+    cmp.add_argument("--output", help="also write the output folder here")
     return p
 
 
@@ -83,10 +103,36 @@ def _run(config_path: str, output: str | None) -> int:
         f"{analysis.counts.height:,} count rows over {len(analysis.km.curves)} cohorts"
     )
     folder = write_outputs(analysis, Path(output).resolve() if output else None)
+    if analysis.comparison is not None:
+        from churnlife.sections.compare import summary_lines
+
+        _say(summary_lines(analysis.comparison, config.tenure_unit)[0])
     for m in analysis.km.medians:
         med = "not reached" if m.median != m.median else f"{m.median:g} {config.tenure_unit}"
         _say(f"  median tenure, {m.cohort}: {med}")
     _say(f"  wrote {folder}/report.html ({time.perf_counter() - t0:.1f} s)")
+    return 0
+
+
+def _compare(args: argparse.Namespace) -> int:
+    from churnlife.compare import parse_by
+    from churnlife.config import load_config
+    from churnlife.pipeline import analyse, write_outputs
+    from churnlife.sections.compare import summary_lines
+
+    t0 = time.perf_counter()
+    config = load_config(args.config)
+    options = {"ties": args.ties, "horizon": args.horizon, "strata": args.strata}
+    if args.by is not None:
+        options["by"] = parse_by(args.by)
+    _say(f"churnlife: reading {config.source.events} ({config.source.kind}) …")
+    analysis = analyse(config, compare=options)
+    assert analysis.comparison is not None
+    for line in summary_lines(analysis.comparison, config.tenure_unit):
+        _say(line)
+    if args.output:
+        folder = write_outputs(analysis, Path(args.output).resolve())
+        _say(f"  wrote {folder}/report.html ({time.perf_counter() - t0:.1f} s)")
     return 0
 
 
@@ -135,6 +181,8 @@ def main(argv: list[str] | None = None) -> int:
             return _run(args.config, args.output)
         if args.command == "check":
             return _check(args.config)
+        if args.command == "compare":
+            return _compare(args)
         _parser().print_help()
         return 2
     except UserError as err:

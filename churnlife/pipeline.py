@@ -15,11 +15,13 @@ from typing import Any
 import polars as pl
 
 from churnlife import __version__
+from churnlife.compare import Comparison, compare_cohorts
 from churnlife.config import Config
 from churnlife.extract import Extract, run_extract
 from churnlife.km import KaplanMeierResult, kaplan_meier
 from churnlife.outputs import atomic_folder
 from churnlife.report import Section, charts_in, render
+from churnlife.sections.compare import compare_sections
 from churnlife.sections.overview import cautions_section, data_section, settings_section
 from churnlife.sections.retention import retention_section
 from churnlife.source import open_source
@@ -34,6 +36,7 @@ class Analysis:
     km: KaplanMeierResult
     sections: list[Section] = field(default_factory=list)
     tables: dict[str, pl.DataFrame] = field(default_factory=dict)
+    comparison: Comparison | None = None  # cohort comparisons (None with a single cohort)
 
     @property
     def counts(self) -> pl.DataFrame:
@@ -58,22 +61,37 @@ def _plain(value: Any) -> Any:
     return int(value) if float(value).is_integer() else float(value)
 
 
-def analyse(config: Config) -> Analysis:
-    """Run the extract and the estimators for ``config``; nothing is written anywhere."""
+def analyse(config: Config, compare: dict[str, Any] | None = None) -> Analysis:
+    """Run the extract and the estimators for ``config``; nothing is written anywhere.
+
+    ``compare`` holds options for ``churnlife.compare.compare_cohorts`` (by, strata, ties,
+    horizon); without it the config's cohorts are compared when there are two or more."""
     source = open_source(config)
     extract = run_extract(config, source)
     km = kaplan_meier(extract.counts, config.confidence, config.interval)
     analysis = Analysis(config, extract, km)
+    if compare is not None or extract.counts["cohort"].n_unique() > 1:
+        analysis.comparison = compare_cohorts(
+            extract,
+            confidence=config.confidence,
+            preferred_horizons=tuple(config.retention_at),
+            **(compare or {}),
+        )
     analysis.tables = {
         "counts": extract.counts,
         "km": km.to_polars(),
         "retention_at": km.retention_at(config.retention_at),
         "median_tenure": km.medians_table(),
     }
+    compared = []
+    if analysis.comparison is not None:
+        analysis.tables.update(analysis.comparison.tables())
+        compared = compare_sections(analysis.comparison, config.tenure_unit)
     analysis.sections = [
         settings_section(config),
         data_section(extract.summary),
         retention_section(km, config.tenure_unit, config.retention_at),
+        *compared,
         cautions_section(config),
     ]
     return analysis
