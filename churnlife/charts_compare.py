@@ -107,7 +107,9 @@ def cause_incidence(causes: CauseResult, unit: str, min_at_risk: int = MIN_AT_RI
     pct = round(causes.confidence * 100)
     base = alt.Chart().encode(
         x=alt.X("tenure:Q", title=f"Tenure ({unit})", scale=alt.Scale(nice=False)),
-        color=alt.Color("cohort:N", title="Cohort", scale=scale),
+        color=alt.Color(
+            "cohort:N", title="Cohort", scale=scale, legend=alt.Legend(symbolOpacity=1)
+        ),
     )
     band = base.mark_area(opacity=0.14, interpolate="step-after").encode(
         y=alt.Y("lower:Q", title="Share churned by this cause", axis=alt.Axis(format="%")),

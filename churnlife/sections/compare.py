@@ -17,7 +17,7 @@ def p_text(column: str = "p") -> pl.Expr:
         pl.when(p.is_null() | p.is_nan())
         .then(pl.lit("—"))
         .when(p < 0.0001)
-        .then(pl.lit("< 0.0001"))
+        .then(pl.lit("<\u00a00.0001"))  # no break inside the number
         .otherwise(p.round_sig_figs(2).cast(pl.String))
         .alias(column)
     )
