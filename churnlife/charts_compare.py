@@ -10,7 +10,6 @@ import polars as pl
 
 from churnlife.causes import CauseResult
 from churnlife.charts import MIN_AT_RISK, PALETTE, _theme
-from churnlife.cox import CoxResult
 
 
 def retention_heatmap(grid: pl.DataFrame, unit: str, by: str) -> alt.Chart:
@@ -49,10 +48,12 @@ def retention_heatmap(grid: pl.DataFrame, unit: str, by: str) -> alt.Chart:
     return _theme(chart)
 
 
-def hazard_ratio_forest(cox: CoxResult) -> alt.LayerChart:
-    """Hazard ratios with Wald intervals on a log scale; the rule at 1 means "same hazard as the
-    reference level". Right of it: churns faster than the reference."""
-    table = cox.to_polars().with_columns(
+def hazard_ratio_forest(
+    hazard_ratios: pl.DataFrame, confidence: float, ties: str, strata: str | None
+) -> alt.LayerChart:
+    """Hazard ratios with Wald intervals on a log scale (``churnlife.compare.hazard_ratio_table``);
+    the rule at 1 means "same hazard as the reference level". Right of it: churns faster."""
+    table = hazard_ratios.with_columns(
         pl.when(pl.col("reference") != "")
         .then(pl.format("{}: {} vs {}", "term", "level", "reference"))
         .otherwise(pl.format("{} (per unit)", "term"))
@@ -62,7 +63,7 @@ def hazard_ratio_forest(cox: CoxResult) -> alt.LayerChart:
     lo = float(np.nanmin(table["lower"].to_numpy()))
     hi = float(np.nanmax(table["upper"].to_numpy()))
     domain = [min(lo, 1.0) / 1.1, max(hi, 1.0) * 1.1]
-    pct = round(cox.confidence * 100)
+    pct = round(confidence * 100)
     base = alt.Chart(table).encode(
         y=alt.Y("label:N", title=None, sort=order, axis=alt.Axis(labelLimit=360)),
         color=alt.Color("term:N", title="Term", scale=alt.Scale(range=PALETTE)),
@@ -87,11 +88,11 @@ def hazard_ratio_forest(cox: CoxResult) -> alt.LayerChart:
         .mark_rule(strokeDash=[4, 3], color="#5f6b6d")
         .encode(x="one:Q")
     )
-    strata = f", strata {cox.strata}" if cox.strata else ""
+    where = f", strata {strata}" if strata else ""
     chart = alt.layer(one, bars, dots).properties(
         width=560,
         height=max(80, 28 * table.height),
-        title=f"Hazard ratios (Cox, {cox.ties} ties{strata})",
+        title=f"Hazard ratios (Cox, {ties} ties{where})",
     )
     return _theme(chart)
 

@@ -13,7 +13,7 @@ from importlib import resources
 from pathlib import Path
 
 from churnlife import __version__
-from churnlife.errors import UserError
+from churnlife.errors import InterruptedAfterWrite, UserError
 
 EXAMPLES = """\
 examples:
@@ -22,6 +22,8 @@ examples:
   churnlife check --config my.toml        validate a config against the data; write nothing
   churnlife run --config my.toml          analyse; write tables, charts and report.html
   churnlife run --config my.toml --output out/2026-12
+  churnlife models --config my.toml       fit hazard models per cohort; print their ranking
+  churnlife run --config my.toml --models weibull,sbg,piecewise --horizon 60
   churnlife compare --config my.toml --by plan,channel --strata signup_year
 """
 
@@ -63,6 +65,18 @@ def _parser() -> argparse.ArgumentParser:
         cmd.add_argument("--config", required=True, help="path of the TOML config")
         if name == "run":
             cmd.add_argument("--output", help="output folder (default: [output] folder)")
+            _model_options(cmd)
+    models = sub.add_parser(
+        "models",
+        help="fit the hazard models per cohort and print their ranking; writes nothing",
+        description="Fit churn hazard models to each cohort's survival counts and print the "
+        "ranking (AIC, BIC, deviation from Kaplan–Meier) and each cohort's best model.",
+        epilog="examples:\n  churnlife models --config churnlife-demo/churnlife.toml\n"
+        "  churnlife models --config my.toml --models weibull,sbg,piecewise",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    models.add_argument("--config", required=True, help="path of the TOML config")
+    _model_options(models)
     cmp = sub.add_parser(
         "compare",
         help="compare cohorts: tests, hazard ratios, restricted mean tenure, churn by cause",
@@ -85,18 +99,81 @@ def _parser() -> argparse.ArgumentParser:
     return p
 
 
+def _model_options(cmd: argparse.ArgumentParser) -> None:
+    from churnlife.models.suite import DEFAULT_MODELS, MODEL_NAMES
+
+    cmd.add_argument(
+        "--models",
+        default=",".join(DEFAULT_MODELS),
+        help=f"comma-separated hazard models to fit, or none (from: {', '.join(MODEL_NAMES)})",
+    )
+    cmd.add_argument(
+        "--horizon", type=int, help="extrapolate to this tenure (default: twice the longest seen)"
+    )
+    cmd.add_argument(
+        "--band",
+        choices=("delta", "bootstrap"),
+        default="delta",
+        help="how the extrapolation bands are computed (default: delta)",
+    )
+
+
+def _model_list(text: str) -> tuple[str, ...]:
+    from churnlife.models.suite import model_fitter
+
+    names = tuple(n.strip() for n in text.split(",") if n.strip())
+    if names in ((), ("none",)):
+        return ()
+    for n in names:
+        model_fitter(n)  # raises UserError naming the unknown model
+    return names
+
+
+def _models(config_path: str, models: str, horizon: int | None, band: str) -> int:
+    from churnlife.config import load_config
+    from churnlife.extract import run_extract
+    from churnlife.models.suite import fit_models
+    from churnlife.source import open_source
+
+    names = _model_list(models) or ("weibull",)
+    config = load_config(config_path)
+    extract = run_extract(config, open_source(config))
+    fitted = fit_models(extract.counts, names, config.confidence)
+    ranking = fitted.ranking()
+    for cohort in fitted.cohorts:
+        _say(f"{cohort}:")
+        part = ranking.filter(ranking["cohort"] == cohort)
+        for rank, model, aic, dev, ok in (
+            part.select("rank", "model", "aic", "max_deviation", "converged").head(12).rows()
+        ):
+            flag = "" if ok else "  (did not converge)"
+            _say(f"  {rank:>2}. {model:<17} AIC {aic:12.1f}   max gap to KM {dev:.3f}{flag}")
+    for cohort, model, reason in fitted.failures:
+        _say(f"  not fitted: {cohort} · {model}: {reason}")
+    return 0
+
+
 def _say(msg: str) -> None:
     print(msg, flush=True)
 
 
-def _run(config_path: str, output: str | None) -> int:
+def _run(
+    config_path: str,
+    output: str | None,
+    models: str | None = None,
+    horizon: int | None = None,
+    band: str = "delta",
+) -> int:
     from churnlife.config import load_config
     from churnlife.pipeline import analyse, write_outputs
 
     t0 = time.perf_counter()
     config = load_config(config_path)
     _say(f"churnlife: reading {config.source.events} ({config.source.kind}) …")
-    analysis = analyse(config)
+    if models is None:
+        analysis = analyse(config)
+    else:
+        analysis = analyse(config, _model_list(models), horizon, band)
     s = analysis.extract.summary
     _say(
         f"  {int(s['n_spells']):,} spells of {int(s['n_customers_with_spells']):,} customers; "
@@ -104,7 +181,7 @@ def _run(config_path: str, output: str | None) -> int:
     )
     folder = write_outputs(analysis, Path(output).resolve() if output else None)
     if analysis.comparison is not None:
-        from churnlife.sections.compare import summary_lines
+        from churnlife.sections.comparison import summary_lines
 
         _say(summary_lines(analysis.comparison, config.tenure_unit)[0])
     for m in analysis.km.medians:
@@ -118,7 +195,7 @@ def _compare(args: argparse.Namespace) -> int:
     from churnlife.compare import parse_by
     from churnlife.config import load_config
     from churnlife.pipeline import analyse, write_outputs
-    from churnlife.sections.compare import summary_lines
+    from churnlife.sections.comparison import summary_lines
 
     t0 = time.perf_counter()
     config = load_config(args.config)
@@ -126,7 +203,7 @@ def _compare(args: argparse.Namespace) -> int:
     if args.by is not None:
         options["by"] = parse_by(args.by)
     _say(f"churnlife: reading {config.source.events} ({config.source.kind}) …")
-    analysis = analyse(config, compare=options)
+    analysis = analyse(config, models=(), compare=options)
     assert analysis.comparison is not None
     for line in summary_lines(analysis.comparison, config.tenure_unit):
         _say(line)
@@ -178,7 +255,9 @@ def main(argv: list[str] | None = None) -> int:
         if args.command == "demo":
             return _demo(args.folder, args.customers, args.seed, args.build_only)
         if args.command == "run":
-            return _run(args.config, args.output)
+            return _run(args.config, args.output, args.models, args.horizon, args.band)
+        if args.command == "models":
+            return _models(args.config, args.models, args.horizon, args.band)
         if args.command == "check":
             return _check(args.config)
         if args.command == "compare":
@@ -188,8 +267,19 @@ def main(argv: list[str] | None = None) -> int:
     except UserError as err:
         print(f"churnlife: {err}", file=sys.stderr)
         return 2
+    except InterruptedAfterWrite as done:
+        print(
+            f"churnlife: interrupted just after {done.folder} was completely written; it holds "
+            "this run's output.",
+            file=sys.stderr,
+        )
+        return 130
     except KeyboardInterrupt:
-        print("churnlife: interrupted; no output folder was changed.", file=sys.stderr)
+        print(
+            "churnlife: interrupted; the output folder was left as it was before this run "
+            "(nothing half-written).",
+            file=sys.stderr,
+        )
         return 130
 
 

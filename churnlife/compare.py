@@ -3,8 +3,8 @@
 ``compare_cohorts`` answers "do these cohorts retain differently, by how much, and is it more
 than noise?" with the log-rank family (churnlife.logrank), a Cox model on the counts
 (churnlife.cox), churn by cause (churnlife.causes), Nelson–Aalen and restricted mean tenure
-(churnlife.hazard), and a signup-cohort × tenure retention grid. Each piece re-counts the staged
-spells inside the engine (``Extract.counts_by``), so nothing here grows with customers.
+(churnlife.nelson_aalen), and a signup-cohort × tenure retention grid. Each piece re-counts the
+staged spells inside the engine (``Extract.counts_by``), so nothing here grows with customers.
 """
 
 from __future__ import annotations
@@ -13,21 +13,16 @@ from dataclasses import dataclass
 
 import numpy as np
 import polars as pl
+from scipy import stats
 
 from churnlife.causes import CauseResult, cumulative_incidence
 from churnlife.config import COHORT_KEYS
-from churnlife.cox import CoxResult, cox_fit
+from churnlife.cox import CoxResult, ProportionalityCheck, cox_fit, proportionality_check
 from churnlife.errors import UserError, did_you_mean
 from churnlife.extract import Extract
-from churnlife.hazard import (
-    NelsonAalenResult,
-    RestrictedMeanResult,
-    default_horizon,
-    nelson_aalen,
-    restricted_mean,
-)
 from churnlife.km import kaplan_meier
 from churnlife.logrank import LogRankResult, TrendResult, logrank_test, pairwise_tests, trend_test
+from churnlife.nelson_aalen import RestrictedMean, nelson_aalen, restricted_mean
 
 ORDERED_KEYS = ("signup_month", "signup_quarter", "signup_year")
 # (label, weight, rho, gamma, what it emphasises)
@@ -70,6 +65,7 @@ class Comparison:
     Attributes
     ----------
     by, strata : the cohort attributes compared, and the attribute compared within (or None).
+    horizon : the restricted mean tenure horizon (tenure units).
     counts : counts per ``by`` cohort × tenure.
     tests : the k-sample test family (test, emphasis, chi_square, df, p), with the stratified and
         trend tests when they apply.
@@ -78,9 +74,14 @@ class Comparison:
     trend : test for a trend across time-ordered cohorts (signup month/quarter/year), else None.
     stratified : the log-rank test within levels of ``strata``, else None.
     cox : Cox model with each ``by`` attribute as a categorical covariate (``strata`` as strata),
-        or None when there is one cohort attribute level only.
-    nelson_aalen, rmst, causes : per-cohort Nelson–Aalen, restricted mean tenure to ``horizon``
-        (with contrasts to a reference cohort) and churn by cause.
+        None when it could not be estimated (see ``notes``); ph_check its proportional-hazards
+        check (covariate × log-tenure interactions, likelihood-ratio test).
+    hazard_ratios : the Cox coefficients as a table: term, level, reference, log_hr, se,
+        hazard_ratio, lower, upper, z, p.
+    nelson_aalen : cohort, tenure, at_risk, churned, cumulative_hazard, variance.
+    rmst, rmst_contrasts : restricted mean tenure to ``horizon`` per cohort, and each cohort's
+        difference from and ratio to the reference cohort, with intervals.
+    causes : churn by cause (Aalen–Johansen).
     heatmap : cohort, tenure, retention, at_risk: Kaplan–Meier retention for each signup cohort
         (``heatmap_by``) while at least 10 customers are at risk.
     """
@@ -95,34 +96,68 @@ class Comparison:
     trend: TrendResult | None
     stratified: LogRankResult | None
     cox: CoxResult | None
-    nelson_aalen: NelsonAalenResult
-    rmst: RestrictedMeanResult
+    ph_check: ProportionalityCheck | None
+    hazard_ratios: pl.DataFrame | None
+    nelson_aalen: pl.DataFrame
+    rmst: RestrictedMean
+    rmst_contrasts: pl.DataFrame
     causes: CauseResult
     heatmap: pl.DataFrame
     heatmap_by: str
     notes: tuple[str, ...] = ()
 
+    def cox_tests(self) -> pl.DataFrame | None:
+        """The Cox model's global tests of "every hazard ratio is 1"."""
+        if self.cox is None:
+            return None
+        tests = (self.cox.lr_test, self.cox.wald_test, self.cox.score_test)
+        return pl.DataFrame(
+            {
+                "test": ["likelihood ratio", "Wald", "score"],
+                "chi_square": [t.statistic for t in tests],
+                "df": [t.df for t in tests],
+                "p": [t.pvalue for t in tests],
+            }
+        )
+
+    def ph_table(self) -> pl.DataFrame | None:
+        """Each coefficient's drift per unit of log tenure, and the joint likelihood-ratio test."""
+        check = self.ph_check
+        if check is None:
+            return None
+        z = check.interaction / check.se
+        return pl.DataFrame(
+            {
+                "term": [*check.terms, "all terms (likelihood ratio)"],
+                "drift_per_log_tenure": [*check.interaction.tolist(), None],
+                "se": [*check.se.tolist(), None],
+                "chi_square": [*(z**2).tolist(), check.lr.statistic],
+                "df": [*([1] * len(check.terms)), check.lr.df],
+                "p": [*(2 * stats.norm.sf(np.abs(z))).tolist(), check.lr.pvalue],
+            }
+        )
+
     def tables(self) -> dict[str, pl.DataFrame]:
         """Tables for the output folder (CSV and Parquet), by file stem."""
         out = {
-            "compare_tests": self.tests,
-            "compare_observed_expected": self.logrank.to_polars(),
-            "compare_pairwise": self.pairwise,
-            "nelson_aalen": self.nelson_aalen.to_polars(),
-            "rmst": self.rmst.estimates,
-            "rmst_contrasts": self.rmst.contrasts,
+            "cohort_tests": self.tests,
+            "cohort_observed_expected": self.logrank.to_polars(),
+            "cohort_pairs": self.pairwise,
+            "nelson_aalen": self.nelson_aalen,
+            "restricted_mean": self.rmst.to_polars(),
+            "restricted_mean_contrasts": self.rmst_contrasts,
             "churn_by_cause": self.causes.incidence,
             "cause_specific_hazards": self.causes.hazards,
             "churn_cause_shares": self.causes.shares(self.horizon),
             "retention_heatmap": self.heatmap,
         }
-        if self.cox is not None:
-            out["cox_hazard_ratios"] = self.cox.to_polars()
-            out["cox_tests"] = self.cox.tests_table()
-            out["cox_terms"] = self.cox.terms
-            out["cox_baseline"] = self.cox.baseline
-            if self.cox.ph_check is not None:
-                out["cox_ph_check"] = self.cox.ph_check.table
+        if self.cox is not None and self.hazard_ratios is not None:
+            out["hazard_ratios"] = self.hazard_ratios
+            out["cox_tests"] = self.cox_tests()
+            out["cox_baseline"] = self.cox.baseline_cumulative_hazard()
+        ph = self.ph_table()
+        if ph is not None:
+            out["cox_ph_check"] = ph
         return out
 
 
@@ -175,6 +210,69 @@ def retention_grid(counts: pl.DataFrame, min_at_risk: int = HEATMAP_MIN_AT_RISK)
     return table.select("cohort", "tenure", pl.col("survival").alias("retention"), "at_risk")
 
 
+def default_horizon(counts: pl.DataFrame, preferred: tuple[int, ...] | list[int]) -> float:
+    """The largest of ``preferred`` tenures (e.g. the report's retention_at) that every cohort
+    has been observed to; else the shortest cohort's longest observed tenure."""
+    shortest = float(counts.group_by("cohort").agg(pl.col("tenure").max())["tenure"].min())
+    fits = [float(t) for t in preferred if 0 < t <= shortest]
+    return max(fits) if fits else shortest
+
+
+def _reference_levels(counts: pl.DataFrame, by: tuple[str, ...]) -> dict[str, str]:
+    """Per attribute, the level with the most customers entering: the others are compared with
+    the best-measured level."""
+    size = "entered" if "entered" in counts.columns else "at_risk"
+    out = {}
+    for col in by:
+        sizes = (
+            counts.group_by(pl.col(col).cast(pl.String).fill_null("(none)").alias("_lvl"))
+            .agg(pl.col(size).sum().alias("_n"))
+            .sort(["_n", "_lvl"], descending=[True, False])
+        )
+        out[col] = str(sizes["_lvl"][0])
+    return out
+
+
+def hazard_ratio_table(cox: CoxResult) -> pl.DataFrame:
+    """Cox coefficients with each level and its reference spelled out."""
+    table = cox.to_polars()
+    terms, levels, refs = [], [], []
+    for name in cox.names:
+        term, _, level = name.partition("=")
+        terms.append(term)
+        levels.append(level)
+        refs.append(cox.reference.get(term, "") if level else "")
+    return pl.DataFrame({"term": terms, "level": levels, "reference": refs}).hstack(
+        table.select(
+            "log_hr",
+            "se",
+            "hazard_ratio",
+            pl.col("hr_lower").alias("lower"),
+            pl.col("hr_upper").alias("upper"),
+            "z",
+            "p",
+        )
+    )
+
+
+def _contrasts(rm: RestrictedMean, reference: str) -> pl.DataFrame:
+    """Each cohort against ``reference``: difference and ratio of restricted means."""
+    rows = []
+    for c in rm.cohorts:
+        if c == reference:
+            continue
+        diff, se, lo, hi = rm.difference(c, reference)
+        ratio, r_lo, r_hi = rm.ratio(c, reference)
+        p = float(2 * stats.norm.sf(abs(diff / se))) if se > 0 else float("nan")
+        rows.append((c, reference, diff, se, lo, hi, p, ratio, r_lo, r_hi))
+    names = ("cohort", "reference", "difference", "se", "lower", "upper", "p", "ratio",
+             "ratio_lower", "ratio_upper")  # fmt: skip
+    return pl.DataFrame(
+        {n: [r[i] for r in rows] for i, n in enumerate(names)},
+        schema_overrides={"cohort": pl.String, "reference": pl.String},
+    )
+
+
 def compare_cohorts(
     extract: Extract,
     by: tuple[str, ...] | list[str] | None = None,
@@ -202,6 +300,8 @@ def compare_cohorts(
             "nothing to compare: name cohort attributes with --by (e.g. --by plan,channel) or "
             "under [cohorts] by in the config."
         )
+    if ties not in ("efron", "breslow"):
+        raise UserError(f'ties must be "efron" or "breslow", not "{ties}".')
     if strata is not None:
         (strata,) = parse_by([strata])
         if strata in by:
@@ -213,11 +313,15 @@ def compare_cohorts(
             f"{', '.join(by)} has one cohort only in this data: nothing to compare. Choose other "
             "attributes with --by."
         )
-    ordered = len(by) == 1 and by[0] in ORDERED_KEYS
+    shortest = float(counts.group_by("cohort").agg(pl.col("tenure").max())["tenure"].min())
+    if horizon is not None and not 0 < horizon <= shortest:
+        raise UserError(
+            f"the restricted-mean horizon {horizon:g} is outside the tenures every cohort was "
+            f"observed for (up to {shortest:g}). Choose --horizon between 0 and {shortest:g}."
+        )
     trend = None
-    if ordered:
-        names = sorted(counts["cohort"].unique().to_list())
-        trend = trend_test(counts, names)
+    if len(by) == 1 and by[0] in ORDERED_KEYS:
+        trend = trend_test(counts, sorted(counts["cohort"].unique().to_list()))
     stratified = None
     cox_counts = counts
     if strata is not None:
@@ -226,12 +330,31 @@ def compare_cohorts(
         stratified = logrank_test(relabelled, strata=strata)
     tests, plain = _tests_table(counts, trend, stratified)
     notes: list[str] = []
-    try:
-        cox = cox_fit(cox_counts, list(by), strata=strata, ties=ties, confidence=confidence)
-    except UserError as err:  # the tests and curves still stand without hazard ratios
-        cox = None
-        notes.append(f"No hazard ratios: {err}")
+    cox = check = table = None
+    fit = cox_fit(
+        cox_counts,
+        list(by),
+        ties=ties,
+        strata=strata,
+        reference=_reference_levels(cox_counts, by),
+        confidence=confidence,
+    )
+    if fit.converged and np.all(np.isfinite(fit.se)) and np.max(np.abs(fit.coef)) < 20:
+        cox, table = fit, hazard_ratio_table(fit)
+        check = proportionality_check(fit, cox_counts, list(by))
+    else:
+        drift = [n for n, b in zip(fit.names, fit.coef, strict=True) if abs(b) > 10]
+        notes.append(
+            "No hazard ratios: the Cox model did not settle"
+            + (f" ({', '.join(drift)} drift towards an infinite ratio)" if drift else "")
+            + ". A level with no churn, or where everyone churns, has no finite ratio; merge it "
+            "with another level or leave it out."
+        )
     horizon = float(horizon) if horizon is not None else default_horizon(counts, preferred_horizons)
+    rm = restricted_mean(counts, horizon, confidence)
+    sizes = counts.group_by("cohort").agg(pl.col("entered").sum()).sort(
+        ["entered", "cohort"], descending=[True, False]
+    )
     heat_key = next((k for k in by if k in ORDERED_KEYS), "signup_quarter")
     heat_counts = counts if by == (heat_key,) else extract.counts_by([heat_key])
     return Comparison(
@@ -245,8 +368,11 @@ def compare_cohorts(
         trend=trend,
         stratified=stratified,
         cox=cox,
-        nelson_aalen=nelson_aalen(counts, confidence),
-        rmst=restricted_mean(counts, horizon, confidence),
+        ph_check=check,
+        hazard_ratios=table,
+        nelson_aalen=nelson_aalen(counts),
+        rmst=rm,
+        rmst_contrasts=_contrasts(rm, str(sizes["cohort"][0])),
         causes=cumulative_incidence(counts, confidence=confidence),
         heatmap=retention_grid(heat_counts),
         heatmap_by=heat_key,

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import datetime as dt
 import json
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -19,10 +20,15 @@ from churnlife.compare import Comparison, compare_cohorts
 from churnlife.config import Config
 from churnlife.extract import Extract, run_extract
 from churnlife.km import KaplanMeierResult, kaplan_meier
+from churnlife.models.suite import DEFAULT_MODELS
+from churnlife.notes import Note, collect, json_safe, km_notes, unexplained_values
 from churnlife.outputs import atomic_folder
+from churnlife.quality import anomaly_table
 from churnlife.report import Section, charts_in, render
-from churnlife.sections.compare import compare_sections
+from churnlife.sections.comparison import comparison_sections
+from churnlife.sections.models import model_results
 from churnlife.sections.overview import cautions_section, data_section, settings_section
+from churnlife.sections.quality import notes_section, quality_section
 from churnlife.sections.retention import retention_section
 from churnlife.source import open_source
 
@@ -34,9 +40,11 @@ class Analysis:
     config: Config
     extract: Extract
     km: KaplanMeierResult
+    comparison: Comparison | None = None
     sections: list[Section] = field(default_factory=list)
     tables: dict[str, pl.DataFrame] = field(default_factory=dict)
-    comparison: Comparison | None = None  # cohort comparisons (None with a single cohort)
+    models: Any = None  # churnlife.models.suite.HazardModels, when models were fitted
+    notes: list[Note] = field(default_factory=list)  # warnings for the reader (churnlife.notes)
 
     @property
     def counts(self) -> pl.DataFrame:
@@ -50,6 +58,7 @@ class Analysis:
             "settings": self.config.summary(),
             "data": {k: _plain(v) for k, v in self.extract.summary.items()},
             "median_tenure": {k: (None if v != v else v) for k, v in medians.items()},
+            "notes": [n.as_dict() for n in self.notes],
         }
 
 
@@ -61,39 +70,66 @@ def _plain(value: Any) -> Any:
     return int(value) if float(value).is_integer() else float(value)
 
 
-def analyse(config: Config, compare: dict[str, Any] | None = None) -> Analysis:
+def analyse(
+    config: Config,
+    models: Sequence[str] | None = DEFAULT_MODELS,
+    horizon: int | None = None,
+    band: str = "delta",
+    compare: dict[str, Any] | None = None,
+) -> Analysis:
     """Run the extract and the estimators for ``config``; nothing is written anywhere.
 
-    ``compare`` holds options for ``churnlife.compare.compare_cohorts`` (by, strata, ties,
-    horizon); without it the config's cohorts are compared when there are two or more."""
+    ``models``: hazard models to fit per cohort (churnlife.models.suite.MODEL_NAMES; None or ()
+    for none); ``horizon`` and ``band`` set their extrapolation (default twice the longest
+    observed tenure, delta-method bands). ``compare``: options for
+    ``churnlife.compare.compare_cohorts`` (by, strata, ties, horizon); without it the config's
+    cohorts are compared when there are two or more."""
     source = open_source(config)
     extract = run_extract(config, source)
     km = kaplan_meier(extract.counts, config.confidence, config.interval)
-    analysis = Analysis(config, extract, km)
+    comparison = None
     if compare is not None or extract.counts["cohort"].n_unique() > 1:
-        analysis.comparison = compare_cohorts(
+        comparison = compare_cohorts(
             extract,
             confidence=config.confidence,
             preferred_horizons=tuple(config.retention_at),
             **(compare or {}),
         )
+    analysis = Analysis(config, extract, km, comparison)
     analysis.tables = {
         "counts": extract.counts,
         "km": km.to_polars(),
         "retention_at": km.retention_at(config.retention_at),
         "median_tenure": km.medians_table(),
+        "data_quality": anomaly_table(extract.summary),
     }
-    compared = []
-    if analysis.comparison is not None:
-        analysis.tables.update(analysis.comparison.tables())
-        compared = compare_sections(analysis.comparison, config.tenure_unit)
-    analysis.sections = [
+    if comparison is not None:
+        analysis.tables.update(comparison.tables())
+    results = [
         settings_section(config),
         data_section(extract.summary),
+        quality_section(extract.summary),
         retention_section(km, config.tenure_unit, config.retention_at),
-        *compared,
-        cautions_section(config),
+        *comparison_sections(comparison, config.tenure_unit),
     ]
+    if models:
+        fitted, model_tables, section = model_results(
+            extract.counts, config.tenure_unit, config.confidence, config.retention_at,
+            models, horizon, band,
+        )
+        analysis.models = fitted
+        analysis.tables.update(model_tables)
+        results.append(section)
+    # Every NaN in a table or chart gets a note (churnlife.notes): known ones first, then a
+    # generic warning for anything no note explains.
+    notes = collect(km_notes(km, config.tenure_unit))
+    specs = {c.name: c.chart.to_dict() for c in charts_in(results)}
+    notes = collect(
+        notes,
+        unexplained_values(analysis.tables, specs, notes, {"retention_curves": "km"}),
+    )
+    analysis.notes = notes
+    analysis.sections = [*results[:3], notes_section(notes), *results[3:], cautions_section(config)]
     return analysis
 
 
@@ -108,7 +144,7 @@ def write_outputs(analysis: Analysis, folder: Path | None = None) -> Path:
         for name, frame in analysis.tables.items():
             out.table(name, frame)
         for chart in charts_in(analysis.sections):
-            spec = chart.chart.to_dict()
+            spec = json_safe(chart.chart.to_dict())
             out.text(f"{chart.name}.vl.json", json.dumps(spec))
             out.text(f"{chart.name}.svg", vlc.vegalite_to_svg(spec))
         out.text("summary.json", json.dumps(analysis.summary(), indent=2))

@@ -9,20 +9,21 @@
 --   {cohort_label}  SQL expression joining them into one label
 --
 -- Integer tenure t names the interval (t-1, t]. Per DEVELOPERS.md: a spell enters at entry_t, a
--- churn is counted at exit_t = ceil(exit_exact), a censoring at exit_t = floor(exit_exact), and a
--- spell is at risk at t when entry_t < t <= exit_t. Exposure is exact customer-time inside (t-1, t].
+-- counted churn at exit_t = ceil(exit_exact), a censoring at exit_t = floor(counted_exit_exact),
+-- and a spell is at risk at t when entry_t < t <= exit_t. Exposure is exact customer-time inside
+-- (t-1, t], up to the last whole unit of the window (counted_exit_exact).
 WITH
 s AS (
     SELECT
         {cohort_cols},
         entry_t,
         exit_t,
-        churned,
+        churn_counted AS churned,
         cause,
         entry_exact AS a,
-        exit_exact  AS b,
+        counted_exit_exact AS b,
         CAST(FLOOR(entry_exact) AS INTEGER) + 1 AS ia,   -- interval holding the entry instant
-        CAST(CEIL(exit_exact) AS INTEGER)       AS ib    -- interval holding the exit instant
+        CAST(CEIL(counted_exit_exact) AS INTEGER) AS ib  -- interval holding the exit instant
     FROM {spells}
 ),
 

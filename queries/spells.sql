@@ -191,6 +191,11 @@ instants AS (
     UNION ALL
     SELECT customer_id, spell_number, start_date, plan, 'exit', exit_date
     FROM spells
+    UNION ALL
+    -- the end of the window: the as-of date's last moment
+    SELECT customer_id, spell_number, start_date, plan, 'horizon',
+           CAST(CAST($as_of AS DATE) + 1 AS DATE)
+    FROM spells
 ),
 
 instants_k0 AS (
@@ -240,7 +245,8 @@ exact AS (
         customer_id,
         spell_number,
         MAX(CASE WHEN which = 'entry' THEN elapsed END) AS entry_exact,
-        MAX(CASE WHEN which = 'exit'  THEN elapsed END) AS exit_exact
+        MAX(CASE WHEN which = 'exit'  THEN elapsed END) AS exit_exact,
+        MAX(CASE WHEN which = 'horizon' THEN elapsed END) AS horizon_exact
     FROM instants_in_unit
     GROUP BY customer_id, spell_number
 )
@@ -256,8 +262,15 @@ SELECT
     s.late_entry,
     e.entry_exact,
     e.exit_exact,
+    -- Only whole units of the window are counted: a churn inside the unit the as-of date cuts
+    -- short is not counted (the spell is censored at the last whole unit), since customers still
+    -- active in that unit cannot be counted as surviving it either.
+    s.churned AND CEIL(e.exit_exact) <= FLOOR(e.horizon_exact) AS churn_counted,
+    LEAST(e.exit_exact, FLOOR(e.horizon_exact))    AS counted_exit_exact,
     CAST(FLOOR(e.entry_exact) AS INTEGER)         AS entry_t,
-    CAST(CASE WHEN s.churned THEN CEIL(e.exit_exact) ELSE FLOOR(e.exit_exact) END AS INTEGER)
+    CAST(CASE WHEN s.churned AND CEIL(e.exit_exact) <= FLOOR(e.horizon_exact)
+              THEN CEIL(e.exit_exact)
+              ELSE FLOOR(LEAST(e.exit_exact, FLOOR(e.horizon_exact))) END AS INTEGER)
                                                   AS exit_t,
     strftime(s.start_date, '%Y-%m')               AS signup_month,
     CAST(EXTRACT(YEAR FROM s.start_date) AS VARCHAR) || '-Q'

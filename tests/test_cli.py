@@ -46,6 +46,7 @@ def test_run_writes_the_output_folder(demo_folder, tmp_path):
     assert not re.search(r"""<(script|link|img)[^>]+(src|href)=["']?https?:""", html)
     assert "vegaEmbed" in html and "Retention by cohort" in html
     assert "Read with care" in html
+    assert "Are cohorts different?" in html and (out / "hazard_ratios.csv").is_file()
     # no temp folders left beside the output
     assert [p.name for p in tmp_path.iterdir()] == ["out"]
 

@@ -58,7 +58,9 @@ def test_causes_and_retention_add_to_one(example):
 @pytest.fixture(scope="module")
 def demo_new(demo_extract):
     s = demo_extract.spells().filter(~pl.col("late_entry"))
-    counts = counts_from_durations(s["exit_t"], s["churned"], cohort=s["plan"], cause=s["cause"])
+    counts = counts_from_durations(
+        s["exit_t"], s["churn_counted"], cohort=s["plan"], cause=s["cause"]
+    )
     return s, counts
 
 
@@ -69,7 +71,7 @@ def test_matches_statsmodels_on_demo(demo_new):
         g = s.filter(pl.col("plan") == plan)
         status = (
             g.select(
-                pl.when(~pl.col("churned"))
+                pl.when(~pl.col("churn_counted"))
                 .then(0)
                 .when(pl.col("cause") == "voluntary")
                 .then(1)
@@ -97,7 +99,7 @@ def test_cause_specific_hazard_matches_statsmodels(demo_new):
     s, counts = demo_new
     r = cumulative_incidence(counts)
     g = s.filter(pl.col("plan") == "beans_monthly")
-    invol = (g["churned"] & (g["cause"] == "involuntary")).to_numpy().astype(float)
+    invol = (g["churn_counted"] & (g["cause"] == "involuntary")).to_numpy().astype(float)
     sf = SurvfuncRight(g["exit_t"].to_numpy().astype(float), invol)
     expected = np.cumsum(sf.n_events / sf.n_risk)
     ours = r.hazards.filter(

@@ -181,7 +181,10 @@ def test_periods_unit_uses_plan_length(tmp_path):
         ],
         [(1, "2022-01-10", "web")],
     )
-    cfg = config_dict(tenure={"unit": "periods", "period_months": {A: 12}})
+    cfg = config_dict(
+        tenure={"unit": "periods", "period_months": {A: 12}},
+        window={"log_start": "2022-01-01", "as_of": "2023-06-30"},  # a whole year observed
+    )
     r = extract(tmp_path, cfg).spells().to_dicts()[0]
     assert r["exit_exact"] == pytest.approx(3 / 12) and r["exit_t"] == 1
 
@@ -208,3 +211,24 @@ def test_source_file_is_unchanged(tmp_path):
     before = hashlib.sha256(path.read_bytes()).hexdigest()
     extract(tmp_path, config_dict()).spells()
     assert hashlib.sha256(path.read_bytes()).hexdigest() == before
+
+
+def test_churn_in_the_unit_cut_short_by_as_of_is_not_counted(tmp_path):
+    """As-of 06-30: a spell started 03-10 has 3 whole months in the window (to 06-10). A cancel on
+    06-20 falls in month 4, which the window cuts short, so it is censored at 3: customers still
+    active in month 4 could not be counted as surviving it either."""
+    write_log(
+        tmp_path,
+        [
+            (1, "2022-03-10 08:00", "start", M, 10, None),
+            (1, "2022-06-20 08:00", "cancel", M, 10, None),
+            (2, "2022-03-10 08:00", "start", M, 10, None),
+            (2, "2022-05-20 08:00", "cancel", M, 10, None),
+        ],
+        [(1, "2022-03-10", "web"), (2, "2022-03-10", "web")],
+    )
+    ex = extract(tmp_path, config_dict())
+    s = {r["customer_id"]: r for r in ex.spells().to_dicts()}
+    assert s[1]["churned"] and not s[1]["churn_counted"] and s[1]["exit_t"] == 3
+    assert s[2]["churned"] and s[2]["churn_counted"] and s[2]["exit_t"] == 3
+    assert int(ex.counts["churned"].sum()) == 1 and int(ex.counts["censored"].sum()) == 1

@@ -60,7 +60,7 @@ def _rows(spells: pl.DataFrame):
     s = spells.filter(pl.col("entry_t") < pl.col("exit_t"))
     return (
         s["exit_t"].to_numpy().astype(float),
-        s["churned"].to_numpy().astype(float),
+        s["churn_counted"].to_numpy().astype(float),
         s["entry_t"].to_numpy().astype(float),
         s,
     )
@@ -93,12 +93,12 @@ def test_fleming_harrington_matches_statsmodels(demo_extract):
     s = _new_signups(demo_extract)
     stat_sm, _ = survdiff(
         s["exit_t"].to_numpy().astype(float),
-        s["churned"].to_numpy().astype(float),
+        s["churn_counted"].to_numpy().astype(float),
         s["plan"].to_numpy(),
         weight_type="fh",
         fh_p=1.0,
     )
-    counts = counts_from_durations(s["exit_t"], s["churned"], cohort=s["plan"])
+    counts = counts_from_durations(s["exit_t"], s["churn_counted"], cohort=s["plan"])
     ours = logrank_test(counts, weight="fleming-harrington", rho=1.0)
     assert ours.statistic == pytest.approx(stat_sm, rel=1e-8)
 
@@ -109,7 +109,7 @@ def test_stratified_matches_statsmodels(demo_extract):
     s = _new_signups(demo_extract)
     stat_sm, _ = survdiff(
         s["exit_t"].to_numpy().astype(float),
-        s["churned"].to_numpy().astype(float),
+        s["churn_counted"].to_numpy().astype(float),
         s["plan"].to_numpy(),
         strata=s["channel"].to_numpy(),
     )
@@ -118,7 +118,7 @@ def test_stratified_matches_statsmodels(demo_extract):
         part = s.filter(pl.col("channel") == ch)
         frames.append(
             counts_from_durations(
-                part["exit_t"], part["churned"], cohort=part["plan"]
+                part["exit_t"], part["churn_counted"], cohort=part["plan"]
             ).with_columns(pl.lit(ch).alias("channel"))
         )
     counts = pl.concat(frames)
@@ -137,11 +137,13 @@ def test_two_sample_matches_scipy(demo_extract):
     for plan in ("beans_monthly", "beans_annual"):
         g = s.filter(pl.col("plan") == plan)
         groups[plan] = stats.CensoredData(
-            uncensored=g.filter(pl.col("churned"))["exit_t"].to_numpy().astype(float),
-            right=g.filter(~pl.col("churned"))["exit_t"].to_numpy().astype(float),
+            uncensored=g.filter(pl.col("churn_counted"))["exit_t"].to_numpy().astype(float),
+            right=g.filter(~pl.col("churn_counted"))["exit_t"].to_numpy().astype(float),
         )
     ref = stats.logrank(groups["beans_monthly"], groups["beans_annual"])
-    counts = counts_from_durations(s["exit_t"], s["churned"], entry=s["entry_t"], cohort=s["plan"])
+    counts = counts_from_durations(
+        s["exit_t"], s["churn_counted"], entry=s["entry_t"], cohort=s["plan"]
+    )
     ours = logrank_test(counts, ["beans_monthly", "beans_annual"])
     assert ours.statistic == pytest.approx(ref.statistic**2, rel=1e-8)
     assert ours.pvalue == pytest.approx(ref.pvalue, rel=1e-6)

@@ -74,8 +74,8 @@ def tests_section(cmp: Comparison, unit: str) -> Section:
         ),
     ]
     return Section(
-        "compare",
-        "Do the cohorts retain differently?",
+        "comparison",
+        "Are cohorts different?",
         blocks,
         lead=f"Tests of equal churn across cohorts by {by}, from the survival counts.",
     )
@@ -86,8 +86,8 @@ def _p(p: float) -> str:
 
 
 def cox_section(cmp: Comparison) -> Section | None:
-    cox = cmp.cox
-    if cox is None:
+    cox, table = cmp.cox, cmp.hazard_ratios
+    if cox is None or table is None:
         if not cmp.notes:
             return None
         return Section(
@@ -108,38 +108,44 @@ def cox_section(cmp: Comparison) -> Section | None:
             "ratio is the same at every tenure; the check below tests that." + strata
         ),
         Chart(
-            hazard_ratio_forest(cox),
-            "hazard_ratios",
+            hazard_ratio_forest(table, cox.confidence, cox.ties, cox.strata),
+            "hazard_ratio_forest",
             caption=f"Hazard ratios with {pct}% Wald intervals (log scale). Right of the dashed "
             "line: churns faster than the reference level.",
         ),
         Table(
-            cox.to_polars().with_columns(p_text()),
+            table.with_columns(p_text()),
             caption=f"Cox model fitted on counts per covariate pattern and tenure ({cox.ties} "
-            f"ties, {cox.n_events:,} churns). coef is the log hazard ratio.",
-            csv_name="cox_hazard_ratios.csv",
-            formats={c: ".3f" for c in ("coef", "se", "hazard_ratio", "lower", "upper", "z")},
-        ),
-        Table(
-            cox.tests_table().with_columns(p_text()),
-            caption="Global tests that every hazard ratio is 1. They agree when the sample is "
-            "large; the likelihood-ratio test is the one to quote when they differ.",
-            csv_name="cox_tests.csv",
-            formats={"chi_square": ".2f"},
+            f"ties, {cox.n_churned:,} churns). log_hr is the log hazard ratio.",
+            csv_name="hazard_ratios.csv",
+            formats={c: ".3f" for c in ("log_hr", "se", "hazard_ratio", "lower", "upper", "z")},
         ),
     ]
-    if cox.ph_check is not None:
+    tests = cmp.cox_tests()
+    if tests is not None:
+        blocks.append(
+            Table(
+                tests.with_columns(p_text()),
+                caption="Global tests that every hazard ratio is 1. They agree when the sample "
+                "is large; the likelihood-ratio test is the one to quote when they differ.",
+                csv_name="cox_tests.csv",
+                formats={"chi_square": ".2f"},
+            )
+        )
+    ph = cmp.ph_table()
+    if cmp.ph_check is not None and ph is not None:
         blocks += [
             Text(
                 '<h3>Is one ratio per level enough?</h3><div class="caution">'
-                f"{esc(cox.ph_check.verdict)}</div>"
+                f"{esc(cmp.ph_check.verdict)}</div>"
             ),
             Table(
-                cox.ph_check.table.with_columns(p_text()),
-                caption="Grambsch–Therneau test: a score test of whether each term's log "
-                "hazard ratio drifts in proportion to log tenure.",
+                ph.with_columns(p_text()),
+                caption="Each coefficient's drift per unit of log tenure (the model refitted with "
+                "covariate × log-tenure terms), and the likelihood-ratio test of no drift in any "
+                "term: a form of the Grambsch–Therneau check that needs only the counts.",
                 csv_name="cox_ph_check.csv",
-                formats={"chi_square": ".2f"},
+                formats={"drift_per_log_tenure": ".3f", "se": ".3f", "chi_square": ".2f"},
             ),
         ]
     return Section(
@@ -152,6 +158,7 @@ def cox_section(cmp: Comparison) -> Section | None:
 
 def rmst_section(cmp: Comparison, unit: str) -> Section:
     r = cmp.rmst
+    ref = cmp.rmst_contrasts["reference"][0] if cmp.rmst_contrasts.height else ""
     pct = round(r.confidence * 100)
     h = f"{r.horizon:g}"
     return Section(
@@ -166,16 +173,17 @@ def rmst_section(cmp: Comparison, unit: str) -> Section:
                 "shape of the curves. It says nothing about tenure after the horizon."
             ),
             Table(
-                r.estimates,
-                caption=f"Restricted mean tenure to {h} {unit} with {pct}% intervals.",
-                csv_name="rmst.csv",
-                formats={c: ".2f" for c in ("rmst", "se", "lower", "upper")},
+                r.to_polars().drop("horizon"),
+                caption=f"Restricted mean tenure to {h} {unit} with {pct}% intervals (Klein & "
+                "Moeschberger's variance).",
+                csv_name="restricted_mean.csv",
+                formats={c: ".2f" for c in ("restricted_mean", "se", "lower", "upper")},
             ),
             Table(
-                r.contrasts.with_columns(p_text()),
-                caption=f"Each cohort against {r.reference}: difference in {unit} kept and the "
-                f"ratio of restricted means, with {pct}% intervals.",
-                csv_name="rmst_contrasts.csv",
+                cmp.rmst_contrasts.with_columns(p_text()),
+                caption=f"Each cohort against {ref}, the largest: difference in {unit} kept "
+                f"and the ratio of restricted means, with {pct}% intervals.",
+                csv_name="restricted_mean_contrasts.csv",
                 formats={
                     **{c: ".2f" for c in ("difference", "se", "lower", "upper")},
                     **{c: ".3f" for c in ("ratio", "ratio_lower", "ratio_upper")},
@@ -241,8 +249,16 @@ def association_caution(cmp: Comparison) -> Section:
     return Section("compare-cautions", "Reading the comparisons", [Text(body)])
 
 
-def compare_sections(cmp: Comparison, unit: str) -> list[Section]:
-    """The comparison sections in report order."""
+def comparison_sections(cmp: Comparison | None, unit: str) -> list[Section]:
+    """The comparison sections in report order (one short section with a single cohort)."""
+    if cmp is None:
+        return [
+            Section(
+                "comparison",
+                "Are cohorts different?",
+                [Text("<p>Only one cohort in this run: set [cohorts] by to compare cohorts.</p>")],
+            )
+        ]
     sections = [tests_section(cmp, unit)]
     cox = cox_section(cmp)
     if cox is not None:
@@ -264,14 +280,14 @@ def summary_lines(cmp: Comparison, unit: str) -> list[str]:
             f"    {row['test']}: chi-square {row['chi_square']:.1f} on {row['df']} df, "
             f"p {_p(row['p'])}"
         )
-    cox = cmp.cox
-    if cox is not None:
+    cox, table = cmp.cox, cmp.hazard_ratios
+    if cox is not None and table is not None:
         lines.append(
             f"  hazard ratios (Cox, {cox.ties} ties"
             + (f", strata {cox.strata}" if cox.strata else "")
             + f", {round(cox.confidence * 100)}% interval):"
         )
-        for row in cox.to_polars().iter_rows(named=True):
+        for row in table.iter_rows(named=True):
             what = (
                 f"{row['term']}: {row['level']} vs {row['reference']}"
                 if row["reference"]
@@ -280,15 +296,16 @@ def summary_lines(cmp: Comparison, unit: str) -> list[str]:
             lines.append(
                 f"    {what}  {row['hazard_ratio']:.3f} ({row['lower']:.3f}–{row['upper']:.3f})"
             )
-        if cox.ph_check is not None:
-            lines.append(f"  proportional hazards: {cox.ph_check.verdict.split(':')[0]}.")
+    if cmp.ph_check is not None:
+        lines.append(f"  proportional hazards: {cmp.ph_check.verdict}")
     for note in cmp.notes:
         lines.append(f"  {note}")
-    rm = cmp.rmst.estimates
+    rm = cmp.rmst.to_polars()
     lines.append(f"  restricted mean tenure, first {cmp.horizon:g} {unit}:")
     for row in rm.iter_rows(named=True):
         lines.append(
-            f"    {row['cohort']}  {row['rmst']:.2f} ({row['lower']:.2f}–{row['upper']:.2f})"
+            f"    {row['cohort']}  {row['restricted_mean']:.2f} "
+            f"({row['lower']:.2f}–{row['upper']:.2f})"
         )
     shares = cmp.causes.shares()
     lines.append("  share of churn by cause:")

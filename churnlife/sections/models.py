@@ -1,0 +1,195 @@
+"""The hazard-models part of the report: which models describe each cohort (ranking), how they
+look against the data (hazard and Kaplan–Meier charts), a holdout backtest, and retention extended
+past the data with bands and cautions."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import polars as pl
+
+from churnlife.charts_models import extrapolation_chart, fits_on_km_chart, hazard_chart
+from churnlife.models.suite import DEFAULT_MODELS, HazardModels, fit_models
+from churnlife.report import Chart, Section, Table, Text, esc
+
+CAUTIONS = (
+    "Past the longest tenure a cohort has been observed, every figure comes from the model's "
+    "form, not from data. Models that fit the observed tenures equally well can part ways there; "
+    "compare several before relying on one.",
+    "The bands show the uncertainty of the model's parameters only. They do not include the "
+    "chance that the model's form is wrong, which dominates far past the data.",
+    "A never-churn share is read off where the curve levels off, at the longest and thinnest "
+    "tenures: treat it as an extrapolation.",
+    "Cohorts are not randomised: differences between them are associations, and a model fitted "
+    "to past cohorts describes new customers only if they resemble them.",
+)
+
+
+def model_results(
+    counts: pl.DataFrame,
+    unit: str,
+    confidence: float = 0.95,
+    retention_at: Sequence[int] = (1, 3, 6, 12, 24),
+    models: Sequence[str] = DEFAULT_MODELS,
+    horizon: int | None = None,
+    band: str = "delta",
+) -> tuple[HazardModels, dict[str, pl.DataFrame], Section]:
+    """Fit the models, build their tables (written beside the report) and the report section."""
+    fitted = fit_models(counts, models, confidence)
+    ranking = fitted.ranking()
+    tables: dict[str, pl.DataFrame] = {"model_ranking": ranking}
+    if fitted.fits:
+        observed = fitted.observed_vs_fitted()
+        bands = fitted.extrapolation(horizon, method=band)
+        backtests = fitted.backtest_table()
+        tables.update(
+            {
+                "model_parameters": fitted.parameters(),
+                "model_fit_by_tenure": observed,
+                "model_extrapolation": bands,
+                "model_backtest": backtests,
+            }
+        )
+    else:
+        observed = bands = backtests = pl.DataFrame()
+    section = models_section(fitted, ranking, observed, bands, backtests, unit, retention_at)
+    return fitted, tables, section
+
+
+def _top_models(ranking: pl.DataFrame, n: int = 3) -> list[str]:
+    ok = ranking.filter(pl.col("converged"))
+    if ok.height == 0:
+        return []
+    # models most often among each cohort's best n, in order of their mean rank
+    top = ok.filter(pl.col("rank") <= n).group_by("model").agg(pl.col("rank").mean()).sort("rank")
+    return top["model"].to_list()[: max(n, 1)]
+
+
+def models_section(
+    fitted: HazardModels,
+    ranking: pl.DataFrame,
+    observed: pl.DataFrame,
+    bands: pl.DataFrame,
+    backtests: pl.DataFrame,
+    unit: str,
+    retention_at: Sequence[int],
+) -> Section:
+    pct = round(fitted.confidence * 100)
+    blocks: list = []
+    if not fitted.fits:
+        reasons = "".join(f"<li>{esc(c)} · {esc(m)}: {esc(r)}</li>" for c, m, r in fitted.failures)
+        blocks.append(Text(f"<p>No model could be fitted.</p><ul>{reasons}</ul>"))
+        return Section("models", "Hazard models and extrapolation", blocks)
+    shown = ranking.drop("note").filter(pl.col("rank") <= 6)
+    blocks.append(
+        Table(
+            shown,
+            caption="Models per cohort, best first by AIC (interval-censored log-likelihood on the "
+            "counts; BIC uses the number of spells). max/area deviation: largest gap and area "
+            f"between the fitted curve and Kaplan–Meier over the observed tenures ({unit}). "
+            "Top six per cohort shown.",
+            csv_name="model_ranking.csv",
+            formats={
+                "loglik": ".1f",
+                "aic": ".1f",
+                "delta_aic": ".1f",
+                "bic": ".1f",
+                "max_deviation": ".3f",
+                "area_deviation": ".2f",
+            },
+        )
+    )
+    top = _top_models(ranking)
+    if top:
+        blocks.append(
+            Chart(
+                hazard_chart(observed, top, unit),
+                "model_hazard",
+                caption="Share of customers at risk who churned in each tenure interval (dots, "
+                "sized by the number at risk) and the period hazard of the best-ranked models.",
+            )
+        )
+        blocks.append(
+            Chart(
+                fits_on_km_chart(observed, top, unit),
+                "model_fits_on_km",
+                caption="Fitted survival curves over the Kaplan–Meier estimate of each cohort.",
+            )
+        )
+    if bands.height:
+        blocks.append(
+            Chart(
+                extrapolation_chart(bands, unit, fitted.confidence),
+                "model_extrapolation",
+                caption=f"Each cohort's best model by AIC with {pct}% pointwise "
+                f"{bands['band'][0]} band. Right of the thin dashed rule the curve is "
+                "extrapolated: no customer has been observed that long.",
+            )
+        )
+        at = sorted({*retention_at, *(int(t) for t in _beyond_points(bands))})
+        wide = (
+            bands.filter(pl.col("tenure").is_in(at))
+            .with_columns(
+                pl.format(
+                    "{}{} ({}–{})",
+                    (pl.col("survival") * 100).round(1),
+                    pl.when(pl.col("beyond_data")).then(pl.lit("*")).otherwise(pl.lit("")),
+                    (pl.col("lower") * 100).round(1),
+                    (pl.col("upper") * 100).round(1),
+                ).alias("value")
+            )
+            .pivot(on="tenure", index=["cohort", "model"], values="value")
+        )
+        wide = wide.rename({c: f"{c} {unit}" for c in wide.columns if c not in ("cohort", "model")})
+        blocks.append(
+            Table(
+                wide,
+                caption=f"Model retention in % with {pct}% interval. * = past the longest "
+                "observed tenure of the cohort (extrapolated; see the cautions below).",
+                csv_name="model_extrapolation.csv",
+            )
+        )
+    if backtests.height:
+        keep = pl.DataFrame(
+            [
+                (c, m)
+                for c in fitted.cohorts
+                if fitted.has_converged(c)
+                for m in {fitted.best(c).name, "weibull", "sbg", "piecewise"}
+            ],
+            schema=["cohort", "model"],
+            orient="row",
+        )
+        bt = backtests.join(keep, on=["cohort", "model"], how="semi").sort("cohort", "model")
+        blocks.append(
+            Table(
+                bt,
+                caption="Holdout backtest: each model refitted on the first half of the observed "
+                f"tenures, its retention for the later half compared with Kaplan–Meier on all the "
+                f"data (absolute error in retention; coverage = share of those tenures where "
+                f"Kaplan–Meier lies inside the model's {pct}% band, which holds parameter "
+                "uncertainty only). Shown: each cohort's best model, Weibull, sBG, piecewise.",
+                csv_name="model_backtest.csv",
+                formats={"mean_abs_error": ".3f", "max_abs_error": ".3f", "coverage": ".0%"},
+            )
+        )
+    if fitted.failures:
+        items = "".join(
+            f"<li>{esc(c)} · {esc(m)}: {esc(r)}</li>" for c, m, r in fitted.failures[:20]
+        )
+        blocks.append(Text(f"<p>Not fitted:</p><ul>{items}</ul>"))
+    body = "".join(f'<div class="caution">{esc(t)}</div>' for t in CAUTIONS)
+    blocks.append(Text(body))
+    return Section(
+        "models",
+        "Hazard models and extrapolation",
+        blocks,
+        lead="Smooth models of churn by tenure, how well each matches the observed curves, and "
+        "what they imply past the longest tenure observed.",
+    )
+
+
+def _beyond_points(bands: pl.DataFrame) -> list[int]:
+    """A few tenures past the data to tabulate: the horizon and its midpoint."""
+    horizon = int(bands["tenure"].max())
+    return [horizon // 2, horizon]
