@@ -23,6 +23,7 @@ from churnlife.extract import Extract
 from churnlife.km import kaplan_meier
 from churnlife.logrank import LogRankResult, TrendResult, logrank_test, pairwise_tests, trend_test
 from churnlife.nelson_aalen import RestrictedMean, nelson_aalen, restricted_mean
+from churnlife.notes import Note, info
 
 ORDERED_KEYS = ("signup_month", "signup_quarter", "signup_year")
 # (label, weight, rho, gamma, what it emphasises)
@@ -352,8 +353,10 @@ def compare_cohorts(
         )
     horizon = float(horizon) if horizon is not None else default_horizon(counts, preferred_horizons)
     rm = restricted_mean(counts, horizon, confidence)
-    sizes = counts.group_by("cohort").agg(pl.col("entered").sum()).sort(
-        ["entered", "cohort"], descending=[True, False]
+    sizes = (
+        counts.group_by("cohort")
+        .agg(pl.col("entered").sum())
+        .sort(["entered", "cohort"], descending=[True, False])
     )
     heat_key = next((k for k in by if k in ORDERED_KEYS), "signup_quarter")
     heat_counts = counts if by == (heat_key,) else extract.counts_by([heat_key])
@@ -378,3 +381,34 @@ def compare_cohorts(
         heatmap_by=heat_key,
         notes=tuple(notes),
     )
+
+
+def comparison_notes(cmp: Comparison | None) -> list[Note]:
+    """Notes for the values the comparison leaves empty, so the reader knows why."""
+    if cmp is None:
+        return []
+    notes = []
+    untested = int(cmp.pairwise["p"].is_nan().sum())
+    if untested:
+        notes.append(
+            info(
+                "comparison",
+                f"{untested} pair(s) of cohorts were never at risk at the same churn tenures "
+                "(e.g. signup periods far apart), so the log-rank test cannot compare them; their "
+                "p-values are left empty and the Holm and Bonferroni adjustments count only the "
+                "pairs that were tested.",
+                covers=["cohort_pairs.p", "cohort_pairs.p_holm", "cohort_pairs.p_bonferroni"],
+            )
+        )
+    shares = cmp.causes.shares(cmp.horizon)
+    if int(shares["share_of_incidence"].is_nan().sum()):
+        notes.append(
+            info(
+                "comparison",
+                f"Some cohorts have no churn observed by tenure {cmp.horizon:g} (for instance "
+                "cohorts seen only from later tenures), so each cause's share of their churn by "
+                "then is undefined and left empty.",
+                covers=["churn_cause_shares.share_of_incidence"],
+            )
+        )
+    return notes

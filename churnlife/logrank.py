@@ -240,14 +240,21 @@ def pairwise_tests(
     names = counts["cohort"].unique(maintain_order=True).to_list()
     rows = [logrank_test(counts, [a, b], weight, rho, gamma) for a, b in combinations(names, 2)]
     p = np.array([r.pvalue for r in rows])
+    # A pair never at risk at the same churn tenures has no test (NaN); the adjustments count
+    # only the pairs that were tested.
+    ok = np.isfinite(p)
+    p_holm, p_bonf = np.full(p.size, np.nan), np.full(p.size, np.nan)
+    if ok.any():
+        p_holm[ok] = holm(p[ok])
+        p_bonf[ok] = np.minimum(p[ok] * ok.sum(), 1.0)
     return pl.DataFrame(
         {
             "cohort_a": [r.cohorts[0] for r in rows],
             "cohort_b": [r.cohorts[1] for r in rows],
             "chi_square": [r.statistic for r in rows],
             "p": p,
-            "p_holm": holm(p) if p.size else p,
-            "p_bonferroni": np.minimum(p * p.size, 1.0),
+            "p_holm": p_holm,
+            "p_bonferroni": p_bonf,
         },
         schema_overrides={"cohort_a": pl.String, "cohort_b": pl.String},
     )

@@ -16,7 +16,7 @@ from typing import Any
 import polars as pl
 
 from churnlife import __version__
-from churnlife.compare import Comparison, compare_cohorts
+from churnlife.compare import Comparison, compare_cohorts, comparison_notes
 from churnlife.config import Config
 from churnlife.extract import Extract, run_extract
 from churnlife.km import KaplanMeierResult, kaplan_meier
@@ -114,15 +114,20 @@ def analyse(
     ]
     if models:
         fitted, model_tables, section = model_results(
-            extract.counts, config.tenure_unit, config.confidence, config.retention_at,
-            models, horizon, band,
+            extract.counts,
+            config.tenure_unit,
+            config.confidence,
+            config.retention_at,
+            models,
+            horizon,
+            band,
         )
         analysis.models = fitted
         analysis.tables.update(model_tables)
         results.append(section)
     # Every NaN in a table or chart gets a note (churnlife.notes): known ones first, then a
     # generic warning for anything no note explains.
-    notes = collect(km_notes(km, config.tenure_unit))
+    notes = collect(km_notes(km, config.tenure_unit), comparison_notes(comparison))
     specs = {c.name: c.chart.to_dict() for c in charts_in(results)}
     notes = collect(
         notes,

@@ -172,6 +172,16 @@ def test_trend_on_signup_quarters(demo_extract):
     assert cmp.trend is not None
     assert "trend across signup order" in cmp.tests["test"].to_list()
     assert cmp.heatmap_by == "signup_quarter" and cmp.heatmap["tenure"].n_unique() <= 48
+    # pairs never at risk together are untested (NaN); Holm/Bonferroni count the tested pairs
+    # only, as statsmodels multipletests does on the finite p-values
+    from statsmodels.stats.multitest import multipletests
+
+    p = cmp.pairwise["p"].to_numpy()
+    ok = np.isfinite(p)
+    assert 0 < ok.sum() < p.size
+    holm = cmp.pairwise["p_holm"].to_numpy()
+    np.testing.assert_allclose(holm[ok], multipletests(p[ok], method="holm")[1], rtol=1e-12)
+    assert np.isnan(holm[~ok]).all()
 
 
 def test_bad_options_are_user_errors(demo_extract):
