@@ -23,7 +23,7 @@ from churnlife.models.suite import DEFAULT_MODELS
 from churnlife.outputs import atomic_folder
 from churnlife.report import Section, charts_in, render
 from churnlife.sections.comparison import Comparison, compare_cohorts, comparison_section
-from churnlife.sections.models import model_results
+from churnlife.sections.models import model_results, price_effect_block
 from churnlife.sections.overview import cautions_section, data_section, settings_section
 from churnlife.sections.retention import retention_section
 from churnlife.source import open_source
@@ -109,6 +109,10 @@ def analyse(
         )
         analysis.models = fitted
         analysis.tables.update(model_tables)
+        price = price_effect_block(extract, config)
+        if price is not None:
+            analysis.tables["model_price_effect"] = price[0]
+            section.blocks.insert(len(section.blocks) - 1, price[1])
         analysis.sections.insert(len(analysis.sections) - 1, section)
     return analysis
 
