@@ -183,6 +183,28 @@ def _cell_log_s(spec, form, theta, beta, x, grid):
     return ls0, np.column_stack([g0, np.outer(h0 * u, x)])
 
 
+def regression_loglik(cells, xs, spec, form):
+    """log L and its analytic gradient in (baseline θ, β), summed over the cells."""
+    p0 = len(spec.specs)
+
+    def loglik_grad(theta_all):
+        theta, beta = theta_all[:p0], theta_all[p0:]
+        total, grad = 0.0, np.zeros(theta_all.size)
+        for data, x in zip((c for c, _ in cells), xs, strict=True):  # loop over cells
+            with np.errstate(all="ignore"):
+                ls, g = _cell_log_s(spec, form, theta, beta, x, data.tenure)
+            if not (np.all(np.isfinite(ls)) and np.all(np.isfinite(g))):
+                return -np.inf, None
+            ll, gg = interval_loglik(ls, data.churned, data.weight, g)
+            if not np.isfinite(ll):
+                return -np.inf, None
+            total += ll
+            grad += gg
+        return total, grad
+
+    return loglik_grad
+
+
 def fit_regression(
     cells: list[tuple[GroupedData, np.ndarray | float]],
     covariates: tuple[str, ...] | list[str],
@@ -207,22 +229,7 @@ def fit_regression(
             "cannot be estimated. Choose covariates that differ between cohorts."
         )
     p0 = len(spec.specs)
-
-    def loglik_grad(theta_all):
-        theta, beta = theta_all[:p0], theta_all[p0:]
-        total, grad = 0.0, np.zeros(theta_all.size)
-        for data, x in zip((c for c, _ in cells), xs, strict=True):  # loop over cells
-            with np.errstate(all="ignore"):
-                ls, g = _cell_log_s(spec, form, theta, beta, x, data.tenure)
-            if not (np.all(np.isfinite(ls)) and np.all(np.isfinite(g))):
-                return -np.inf, None
-            ll, gg = interval_loglik(ls, data.churned, data.weight, g)
-            if not np.isfinite(ll):
-                return -np.inf, None
-            total += ll
-            grad += gg
-        return total, grad
-
+    loglik_grad = regression_loglik(cells, xs, spec, form)
     pooled = _pooled(cells)
     starts = [np.concatenate([s, np.zeros(k)]) for s in spec.starts(pooled)]
     n = sum(c.n_subjects for c, _ in cells)
@@ -364,8 +371,11 @@ def price_effects(counts: pl.DataFrame, confidence: float = 0.95) -> pl.DataFram
     rows = []
     after = counts.filter(pl.col("price_state") == PRICE_STATES[1])
     for cohort in after["cohort"].unique(maintain_order=True).to_list():  # loop over cohorts
-        ph = fit_price_ph(counts, cohort, confidence=confidence).effects()
-        pw = fit_piecewise_price(counts, cohort, confidence=confidence).effect()
+        try:
+            ph = fit_price_ph(counts, cohort, confidence=confidence).effects()
+            pw = fit_piecewise_price(counts, cohort, confidence=confidence).effect()
+        except (UserError, np.linalg.LinAlgError, ValueError):
+            continue  # too few churns after the increase to estimate its effect
         spells_after = int(after.filter(pl.col("cohort") == cohort)["entered"].sum())
         rows.append(
             (cohort, "weibull PH", ph["ratio"][0], ph["lower"][0], ph["upper"][0], spells_after)
