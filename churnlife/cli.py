@@ -13,7 +13,7 @@ from importlib import resources
 from pathlib import Path
 
 from churnlife import __version__
-from churnlife.errors import UserError
+from churnlife.errors import InterruptedAfterWrite, UserError
 
 EXAMPLES = """\
 examples:
@@ -219,8 +219,19 @@ def main(argv: list[str] | None = None) -> int:
     except UserError as err:
         print(f"churnlife: {err}", file=sys.stderr)
         return 2
+    except InterruptedAfterWrite as done:
+        print(
+            f"churnlife: interrupted just after {done.folder} was completely written; it holds "
+            "this run's output.",
+            file=sys.stderr,
+        )
+        return 130
     except KeyboardInterrupt:
-        print("churnlife: interrupted; no output folder was changed.", file=sys.stderr)
+        print(
+            "churnlife: interrupted; the output folder was left as it was before this run "
+            "(nothing half-written).",
+            file=sys.stderr,
+        )
         return 130
 
 

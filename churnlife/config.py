@@ -33,6 +33,7 @@ COLUMN_ROLES_EVENTS = ("customer_id", "event_time", "event_kind", "plan", "price
 COLUMN_ROLES_CUSTOMERS = ("signup_date", "channel")
 SOURCE_KINDS = ("duckdb", "files")
 INTERVAL_KINDS = ("log-log", "plain")
+INCOMPLETE_ROWS = ("stop", "drop")
 
 # A plain SQL identifier: letters, digits, underscore; optionally schema-qualified with one dot.
 _IDENT = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*(\.[A-Za-z_][A-Za-z0-9_]*)?$")
@@ -69,6 +70,7 @@ class Config:
     interval: str
     output_folder: Path
     config_path: Path | None = None
+    incomplete_rows: str = "stop"  # rows without id, time or kind: "stop" the run, or "drop" them
 
     def summary(self) -> dict[str, Any]:
         """The run's parameters as shown in the report (no credentials, no file contents)."""
@@ -81,6 +83,7 @@ class Config:
             "tenure unit": self.tenure_unit,
             "failed-payment grace (days)": self.grace_days,
             "gap bridged as continuation (days)": self.reactivation_gap_days,
+            "rows without id, time or kind": self.incomplete_rows,
             "cohorts by": ", ".join(self.cohorts) or "(all customers together)",
             "confidence": self.confidence,
             "interval": self.interval,
@@ -93,7 +96,7 @@ _SCHEMA: dict[str, tuple[str, ...]] = {
     "event_codes": EVENT_ROLES,
     "window": ("log_start", "as_of"),
     "tenure": ("unit", "period_months", "default_period_months"),
-    "rules": ("grace_days", "reactivation_gap_days"),
+    "rules": ("grace_days", "reactivation_gap_days", "incomplete_rows"),
     "cohorts": ("by", "price_bands"),
     "report": ("retention_at", "confidence", "interval"),
     "output": ("folder",),
@@ -131,7 +134,8 @@ def _check_keys(raw: dict[str, Any]) -> None:
             )
         if not isinstance(value, dict):
             raise UserError(
-                f"config: [{table}] must be a table of keys, not {type(value).__name__}."
+                f"config: [{table}] must be a table of keys, not a single value. Write it as a "
+                f"[{table}] section with one key per line (see README.md, 'Config reference')."
             )
         for key in value:
             if key not in _SCHEMA[table]:
@@ -152,11 +156,37 @@ def _get(raw: dict, table: str, key: str, kind: type | tuple[type, ...], default
     if float in kinds and isinstance(value, int) and not isinstance(value, bool):
         value = float(value)
     if (isinstance(value, bool) and bool not in kinds) or not isinstance(value, kinds):
-        names = " or ".join(k.__name__ for k in kinds)
+        names = " or ".join(
+            f"{_TOML_WORDS[k][0]} (e.g. {_TOML_WORDS[k][1]})" if k in _TOML_WORDS else k.__name__
+            for k in kinds
+        )
+        got = _TOML_WORDS.get(type(value), (type(value).__name__,))[0]
         raise UserError(
-            f"config: [{table}] {key} must be {names}, got {type(value).__name__} {value!r}."
+            f"config: [{table}] {key} must be {names}, but it is {got}: {_toml(value)}. "
+            "Write it in that form (see README.md, 'Config reference')."
         )
     return value
+
+
+# How TOML values are called in messages (a user writes TOML, not Python): name, example.
+_TOML_WORDS: dict[type, tuple[str, str]] = {
+    int: ("a whole number", "14"),
+    float: ("a number", "0.95"),
+    str: ("text in quotes", '"months"'),
+    bool: ("true or false", "true"),
+    list: ("a list in brackets", "[1, 12]"),
+    dict: ("a table", "{ key = 1 }"),
+    dt.date: ("a date", "2024-01-31"),
+}
+
+
+def _toml(value: Any) -> str:
+    """A value as it is written in TOML (for messages)."""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, str):
+        return '"' + value + '"'
+    return repr(value) if not isinstance(value, dt.date) else value.isoformat()
 
 
 def check_identifier(name: str, what: str) -> str:
@@ -285,6 +315,12 @@ def parse_config(raw: dict[str, Any], base: Path, config_path: Path | None = Non
     gap = _get(raw, "rules", "reactivation_gap_days", int, 30)
     if grace < 0 or gap < 0:
         raise UserError("config: [rules] grace_days and reactivation_gap_days must be ≥ 0 days.")
+    incomplete = _get(raw, "rules", "incomplete_rows", str, "stop")
+    if incomplete not in INCOMPLETE_ROWS:
+        raise UserError(
+            f'config: [rules] incomplete_rows = "{incomplete}" is not known.'
+            f'{did_you_mean(incomplete, INCOMPLETE_ROWS)} Use "stop" (the default) or "drop".'
+        )
 
     by = _get(raw, "cohorts", "by", list, [])
     for key in by:
@@ -362,4 +398,5 @@ def parse_config(raw: dict[str, Any], base: Path, config_path: Path | None = Non
         interval=interval,
         output_folder=(base / folder).resolve(),
         config_path=config_path,
+        incomplete_rows=incomplete,
     )

@@ -13,6 +13,15 @@ class UserError(Exception):
     """
 
 
+class InterruptedAfterWrite(KeyboardInterrupt):
+    """Ctrl-C arrived while a complete output folder was being swapped in: the swap was finished
+    first, so ``folder`` holds this run's complete output (churnlife.outputs)."""
+
+    def __init__(self, folder: object) -> None:
+        super().__init__(str(folder))
+        self.folder = folder
+
+
 def did_you_mean(word: str, choices: list[str] | tuple[str, ...]) -> str:
     """A ' Did you mean "x"?' suffix, or '' when nothing is close."""
     close = difflib.get_close_matches(word, list(choices), n=1, cutoff=0.6)

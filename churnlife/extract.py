@@ -90,7 +90,8 @@ def _check_columns(config: Config, source: Source) -> None:
             hint = f' Did you mean "{lowered[name.lower()]}"?' if name.lower() in lowered else ""
             raise UserError(
                 f'[columns] {role} = "{name}" is not a column of the events table.'
-                f"{hint or did_you_mean(name, available)} Columns there: {', '.join(available)}."
+                f"{hint or did_you_mean(name, available)} Columns there: {', '.join(available)}. "
+                f"Fix [columns] {role} in the config."
             )
     if config.customer_columns_in == "customers":
         cust_cols = source.columns("customers")
@@ -110,9 +111,12 @@ def _check_codes(config: Config, source: Source, params: dict[str, Any]) -> None
         read_query("unknown_codes"), {"event_kind": col, "events": source.relation("events")}
     )
     unknown = source.query(sql, params)
+    if config.incomplete_rows == "drop":  # rows without a kind are dropped, not unknown codes
+        unknown = unknown.filter(pl.col("event_kind").is_not_null())
     if unknown.height:
         listed = ", ".join(
-            f'"{k}" ({n} events)' for k, n in unknown.select("event_kind", "n_events").iter_rows()
+            (f'"{k}"' if k is not None else "(no kind)") + f" ({n} event{'s' * (n != 1)})"
+            for k, n in unknown.select("event_kind", "n_events").iter_rows()
         )
         raise UserError(
             f"unknown event codes in the log: {listed}. Map each to a role under [event_codes] "
@@ -134,7 +138,9 @@ def _price_band_expr(config: Config) -> str:
         return f"{x:g}"
 
     # Edges come from validated numbers in the config, so they are safe to write as literals.
-    whens = [f"WHEN s.price < {edges[0]!r} THEN 'under {money(edges[0])}'"]
+    # A price of zero or less is no price per period: no band (README.md, "Data quality").
+    whens = ["WHEN s.price <= 0 THEN NULL"]
+    whens.append(f"WHEN s.price < {edges[0]!r} THEN 'under {money(edges[0])}'")
     for lo, hi in pairwise(edges):
         whens.append(f"WHEN s.price < {hi!r} THEN '{money(lo)} to under {money(hi)}'")
     whens.append(f"WHEN s.price >= {edges[-1]!r} THEN '{money(edges[-1])} and over'")
@@ -167,22 +173,26 @@ def events_normalised_sql(config: Config, source: Source) -> str:
     )
 
 
+def customer_info_sql(config: Config, source: Source) -> str:
+    """Signup date and channel per customer (queries/customers_from_*.sql)."""
+    if config.customer_columns_in == "events":
+        return read_query("customers_from_events")
+    cols = {role: _col_or_null(config, source, role) for role in config.columns}
+    return fill(
+        read_query("customers_from_table"),
+        {
+            "customer_id": cols["customer_id"],
+            "signup_date": cols["signup_date"],
+            "channel": cols["channel"],
+            "customers": source.relation("customers"),
+        },
+    )
+
+
 def spells_sql(config: Config, source: Source) -> str:
     """The complete spells query for this config and engine."""
-    cols = {role: _col_or_null(config, source, role) for role in config.columns}
     events_norm = events_normalised_sql(config, source)
-    if config.customer_columns_in == "events":
-        customer_info = read_query("customers_from_events")
-    else:
-        customer_info = fill(
-            read_query("customers_from_table"),
-            {
-                "customer_id": cols["customer_id"],
-                "signup_date": cols["signup_date"],
-                "channel": cols["channel"],
-                "customers": source.relation("customers"),
-            },
-        )
+    customer_info = customer_info_sql(config, source)
     return fill(
         read_query("spells"),
         {
@@ -228,8 +238,11 @@ def count_spells(source: Source, spells_relation: str, cohorts: tuple[str, ...])
 
 def run_extract(config: Config, source: Source) -> Extract:
     """Validate the log against the config, then count. Nothing is written to the source."""
+    from churnlife import quality
+
     _check_columns(config, source)
     params = parameters(config)
+    checked = quality.check_log(config, source, params)  # stops on what cannot be handled
     _check_codes(config, source, params)
     spells_rel = source.stage("spells", spells_sql(config, source), params)
     counts = count_spells(source, spells_rel, config.cohorts)
@@ -245,6 +258,13 @@ def run_extract(config: Config, source: Source) -> Extract:
     )
     summary = source.query(summary_sql, params).to_dicts()[0]
     summary["n_duplicate_rows"] = int(summary["n_rows"] or 0) - int(summary["n_distinct"] or 0)
+    summary.update(checked)
+    if summary["n_spells"]:
+        summary.update(
+            quality.count_anomalies(
+                config, source, params, spells_rel, customer_info_sql(config, source)
+            )
+        )
     if not summary["n_spells"]:
         raise UserError(
             f"no subscription spells found between {config.log_start} and {config.as_of}. Check "

@@ -7,13 +7,16 @@ from __future__ import annotations
 import contextlib
 import os
 import shutil
+import signal
 import tempfile
+import threading
 from collections.abc import Iterator
 from pathlib import Path
+from types import FrameType
 
 import polars as pl
 
-from churnlife.errors import UserError
+from churnlife.errors import InterruptedAfterWrite, UserError
 
 
 class OutputFolder:
@@ -24,9 +27,13 @@ class OutputFolder:
 
     def table(self, name: str, frame: pl.DataFrame, parquet: bool = True) -> None:
         """``name``.csv (and .parquet) from a polars frame."""
-        frame.write_csv(self.path / f"{name}.csv")
-        if parquet:
-            frame.write_parquet(self.path / f"{name}.parquet")
+        try:
+            frame.write_csv(self.path / f"{name}.csv")
+            if parquet:
+                frame.write_parquet(self.path / f"{name}.parquet")
+        except pl.exceptions.PolarsError as err:
+            # polars reports a failed write (e.g. a full disk) as its own error type
+            raise OSError(f"{name}: {err}") from None
 
     def text(self, name: str, content: str) -> None:
         (self.path / name).write_text(content, encoding="utf-8")
@@ -40,24 +47,25 @@ def atomic_folder(target: Path) -> Iterator[OutputFolder]:
     try:
         parent.mkdir(parents=True, exist_ok=True)
         tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.writing-", dir=parent))
+    except (FileExistsError, NotADirectoryError):
+        raise UserError(
+            f"cannot write the output folder {target}: part of that path is a file, not a "
+            "folder. Choose a folder you can write to with --output (or [output] folder)."
+        ) from None
     except OSError as err:
         raise UserError(
-            f"cannot write the output folder {target}: {err.strerror}. Choose a folder you can "
-            "write to with --output (or [output] folder in the config)."
+            f"cannot write the output folder {target}: {err.strerror or err}. Choose a folder "
+            "you can write to with --output (or [output] folder in the config)."
         ) from None
     if target.exists() and not target.is_dir():
         shutil.rmtree(tmp, ignore_errors=True)
         raise UserError(f"output path {target} exists and is not a folder. Choose another path.")
+    interrupted = False
     try:
         yield OutputFolder(tmp)
-        old = None
-        if target.exists():
-            old = Path(tempfile.mkdtemp(prefix=f".{target.name}.previous-", dir=parent))
-            os.rmdir(old)
-            os.replace(target, old)
-        os.replace(tmp, target)
-        if old is not None:
-            shutil.rmtree(old, ignore_errors=True)
+        with _interrupts_deferred() as deferred:
+            _swap_in(tmp, target)
+        interrupted = deferred.received
     except OSError as err:
         shutil.rmtree(tmp, ignore_errors=True)
         raise UserError(
@@ -67,3 +75,45 @@ def atomic_folder(target: Path) -> Iterator[OutputFolder]:
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
+    if interrupted:
+        raise InterruptedAfterWrite(target)
+
+
+def _swap_in(tmp: Path, target: Path) -> None:
+    """Replace ``target`` by ``tmp``; if the second rename fails, put the previous folder back."""
+    old = None
+    if target.exists():
+        old = Path(tempfile.mkdtemp(prefix=f".{target.name}.previous-", dir=target.parent))
+        os.rmdir(old)
+        os.replace(target, old)
+    try:
+        os.replace(tmp, target)
+    except OSError:
+        if old is not None:
+            os.replace(old, target)
+        raise
+    if old is not None:
+        shutil.rmtree(old, ignore_errors=True)
+
+
+class _Deferred:
+    received = False
+
+
+@contextlib.contextmanager
+def _interrupts_deferred() -> Iterator[_Deferred]:
+    """Hold back Ctrl-C (SIGINT) for the few renames that swap a folder in, so an interrupt never
+    leaves the target missing; ``received`` tells whether one arrived meanwhile."""
+    state = _Deferred()
+    if threading.current_thread() is not threading.main_thread():
+        yield state  # signals are only delivered to the main thread
+        return
+
+    def hold(signum: int, frame: FrameType | None) -> None:
+        state.received = True
+
+    previous = signal.signal(signal.SIGINT, hold)
+    try:
+        yield state
+    finally:
+        signal.signal(signal.SIGINT, previous)

@@ -20,11 +20,14 @@ from churnlife.config import Config
 from churnlife.extract import Extract, run_extract
 from churnlife.km import KaplanMeierResult, kaplan_meier
 from churnlife.models.suite import DEFAULT_MODELS
+from churnlife.notes import Note, collect, json_safe, km_notes, unexplained_values
 from churnlife.outputs import atomic_folder
+from churnlife.quality import anomaly_table
 from churnlife.report import Section, charts_in, render
 from churnlife.sections.comparison import Comparison, compare_cohorts, comparison_section
 from churnlife.sections.models import model_results, price_effect_block
 from churnlife.sections.overview import cautions_section, data_section, settings_section
+from churnlife.sections.quality import notes_section, quality_section
 from churnlife.sections.retention import retention_section
 from churnlife.source import open_source
 
@@ -40,6 +43,7 @@ class Analysis:
     sections: list[Section] = field(default_factory=list)
     tables: dict[str, pl.DataFrame] = field(default_factory=dict)
     models: Any = None  # churnlife.models.suite.HazardModels, when models were fitted
+    notes: list[Note] = field(default_factory=list)  # warnings for the reader (churnlife.notes)
 
     @property
     def counts(self) -> pl.DataFrame:
@@ -53,6 +57,7 @@ class Analysis:
             "settings": self.config.summary(),
             "data": {k: _plain(v) for k, v in self.extract.summary.items()},
             "median_tenure": {k: (None if v != v else v) for k, v in medians.items()},
+            "notes": [n.as_dict() for n in self.notes],
         }
 
 
@@ -87,6 +92,7 @@ def analyse(
         "km": km.to_polars(),
         "retention_at": km.retention_at(config.retention_at),
         "median_tenure": km.medians_table(),
+        "data_quality": anomaly_table(extract.summary),
     }
     if comparison is not None:
         analysis.tables["cohort_tests"] = comparison.tests_table()
@@ -95,12 +101,12 @@ def analyse(
             analysis.tables["hazard_ratios"] = comparison.cox.to_polars()
         if comparison.restricted is not None:
             analysis.tables["restricted_mean"] = comparison.restricted.to_polars()
-    analysis.sections = [
+    results = [
         settings_section(config),
         data_section(extract.summary),
+        quality_section(extract.summary),
         retention_section(km, config.tenure_unit, config.retention_at),
         comparison_section(comparison),
-        cautions_section(config),
     ]
     if models:
         fitted, model_tables, section = model_results(
@@ -113,7 +119,17 @@ def analyse(
         if price is not None:
             analysis.tables["model_price_effect"] = price[0]
             section.blocks.insert(len(section.blocks) - 1, price[1])
-        analysis.sections.insert(len(analysis.sections) - 1, section)
+        results.append(section)
+    # Every NaN in a table or chart gets a note (churnlife.notes): known ones first, then a
+    # generic warning for anything no note explains.
+    notes = collect(km_notes(km, config.tenure_unit))
+    specs = {c.name: c.chart.to_dict() for c in charts_in(results)}
+    notes = collect(
+        notes,
+        unexplained_values(analysis.tables, specs, notes, {"retention_curves": "km"}),
+    )
+    analysis.notes = notes
+    analysis.sections = [*results[:3], notes_section(notes), *results[3:], cautions_section(config)]
     return analysis
 
 
@@ -128,7 +144,7 @@ def write_outputs(analysis: Analysis, folder: Path | None = None) -> Path:
         for name, frame in analysis.tables.items():
             out.table(name, frame)
         for chart in charts_in(analysis.sections):
-            spec = chart.chart.to_dict()
+            spec = json_safe(chart.chart.to_dict())
             out.text(f"{chart.name}.vl.json", json.dumps(spec))
             out.text(f"{chart.name}.svg", vlc.vegalite_to_svg(spec))
         out.text("summary.json", json.dumps(analysis.summary(), indent=2))

@@ -10,6 +10,8 @@ from typing import Any
 
 import polars as pl
 
+from churnlife.notes import json_safe
+
 
 @dataclass
 class Block:
@@ -145,7 +147,8 @@ def render(
                 parts.append(table_html(block))
             elif isinstance(block, Chart):
                 div = f"chart-{len(charts)}"
-                charts.append((div, block.chart.to_dict()))
+                # NaN is not JSON: missing points become null (churnlife.notes explains them)
+                charts.append((div, json_safe(block.chart.to_dict())))
                 cap = f'<p class="caption">{esc(block.caption)}</p>' if block.caption else ""
                 parts.append(f'<div class="figure"><div id="{div}"></div>{cap}</div>')
         parts.append("</section>")

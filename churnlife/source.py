@@ -69,6 +69,8 @@ class DuckDBSource:
     def __init__(self, config: Config) -> None:
         src = config.source
         self._con = duckdb.connect(":memory:")
+        # Time-zone-aware times are read in UTC, whatever the machine's zone (README.md).
+        self._con.execute("SET TimeZone = 'UTC'").fetchall()
         self._names: dict[str, str] = {}
         if src.kind == "duckdb":
             path = src.database
@@ -83,8 +85,9 @@ class DuckDBSource:
                 self._con.execute(f"ATTACH {literal} AS src (READ_ONLY)").fetchall()
             except duckdb.Error as err:
                 raise UserError(
-                    f"cannot open {path} as a DuckDB database ({_first_line(err)}). If another "
-                    "program holds it open for writing, close that program or copy the file."
+                    f"cannot open {path} as a DuckDB database ({_first_line(err)}). Check that "
+                    "[source] database names a DuckDB file; if another program holds it open for "
+                    "writing, close that program or copy the file."
                 ) from None
             self._con.execute("USE src").fetchall()
             self._names["events"] = quote_duckdb(src.events)
@@ -166,6 +169,13 @@ def _engine_errors() -> Iterator[None]:
     """Turn the engine's complaints about the user's data or names into a UserError."""
     try:
         yield
+    except duckdb.InterruptException:
+        raise KeyboardInterrupt from None
+    except RuntimeError as err:
+        # DuckDB reports Ctrl-C during a query as RuntimeError("Query interrupted").
+        if "interrupted" in str(err).lower():
+            raise KeyboardInterrupt from None
+        raise
     except duckdb.ConversionException as err:
         raise UserError(
             f"a column in the log does not hold the type churnlife expects: {_first_line(err)}. "
@@ -176,6 +186,12 @@ def _engine_errors() -> Iterator[None]:
         raise UserError(
             f"the database refused the query: {_first_line(err)}. Check the table and column "
             "names in [source] and [columns]."
+        ) from None
+    except (duckdb.InvalidInputException, duckdb.IOException) as err:
+        # e.g. a malformed CSV row, found only when the rows are read
+        raise UserError(
+            f"the log could not be read: {_first_line(err)}. Fix the file or table it names "
+            "(for CSV, [source] read_options passes options to the reader)."
         ) from None
 
 

@@ -116,6 +116,10 @@ class HazardModels:
             raise UserError(f"no model converged for cohort {cohort!r}.")
         return min(ok, key=lambda f: getattr(f, by))
 
+    def has_converged(self, cohort: str) -> bool:
+        """Whether any model converged for ``cohort`` (tiny or churn-free cohorts may have none)."""
+        return any(f.convergence.converged for f in self.for_cohort(cohort))
+
     def parameters(self) -> pl.DataFrame:
         return pl.concat([f.estimates() for f in self.fits]) if self.fits else pl.DataFrame()
 
@@ -159,6 +163,8 @@ class HazardModels:
         rng = np.random.default_rng(seed)
         frames = []
         for cohort, d in self.data.items():
+            if models is None and not self.has_converged(cohort):
+                continue  # nothing to extend; the ranking shows the failed fits
             h = horizon or 2 * max(d.max_tenure, 1)
             chosen = (
                 [self.best(cohort)]

@@ -154,7 +154,7 @@ def models_section(
             [
                 (c, m)
                 for c in fitted.cohorts
-                if fitted.for_cohort(c)
+                if fitted.has_converged(c)
                 for m in {fitted.best(c).name, "weibull", "sbg", "piecewise"}
             ],
             schema=["cohort", "model"],

@@ -31,13 +31,13 @@ def data_summary_rows(summary: dict[str, Any]) -> dict[str, str]:
 
 
 def anomaly_rows(summary: dict[str, Any]) -> dict[str, str]:
-    """Problems found in the log and how each was handled."""
+    """Problems found in the log and how each was handled (rules in churnlife.quality)."""
+    from churnlife.quality import HANDLED
+
     return {
-        "exact duplicate event rows (dropped, counted once)": f"{summary['n_duplicate_rows']:,}",
-        "events after the as-of date (ignored)": f"{int(summary['n_after_as_of'] or 0):,}",
-        "events before the log start (ignored)": f"{int(summary['n_before_log'] or 0):,}",
-        "rows with no customer id (ignored)": f"{int(summary['n_null_customer'] or 0):,}",
-        "rows with no event time (ignored)": f"{int(summary['n_null_time'] or 0):,}",
+        f"{a.what} ({a.rule})": f"{int(summary[a.key] or 0):,}"
+        for a in HANDLED
+        if a.key in summary
     }
 
 
@@ -54,11 +54,7 @@ def data_section(summary: dict[str, Any]) -> Section:
     return Section(
         "data",
         "What the log holds",
-        [
-            Text(params_html(data_summary_rows(summary))),
-            Text("<h3>Anomalies found and how they were handled</h3>"),
-            Text(params_html(anomaly_rows(summary))),
-        ],
+        [Text(params_html(data_summary_rows(summary)))],
         lead="Counts from the event log inside the analysis window, before any model.",
     )
 
