@@ -41,7 +41,11 @@ def model_results(
     if fitted.fits:
         observed = fitted.observed_vs_fitted()
         bands = fitted.extrapolation(horizon, method=band)
-        backtests = fitted.backtest_table()
+        # the report shows each cohort's best model and three reference models: refit only those
+        shown = {"weibull", "sbg", "piecewise"} | {
+            fitted.best(c).name for c in fitted.cohorts if fitted.has_converged(c)
+        }
+        backtests = fitted.backtest_table(models=sorted(shown & set(models)))
         tables.update(
             {
                 "model_parameters": fitted.parameters(),
