@@ -26,7 +26,7 @@ from churnlife.outputs import atomic_folder
 from churnlife.quality import anomaly_table
 from churnlife.report import Section, charts_in, render
 from churnlife.sections.comparison import comparison_sections
-from churnlife.sections.models import model_results
+from churnlife.sections.models import model_results, price_effect_block
 from churnlife.sections.overview import cautions_section, data_section, settings_section
 from churnlife.sections.quality import notes_section, quality_section
 from churnlife.sections.retention import retention_section
@@ -114,16 +114,15 @@ def analyse(
     ]
     if models:
         fitted, model_tables, section = model_results(
-            extract.counts,
-            config.tenure_unit,
-            config.confidence,
-            config.retention_at,
-            models,
-            horizon,
-            band,
+            extract.counts, config.tenure_unit, config.confidence, config.retention_at,
+            models, horizon, band,
         )
         analysis.models = fitted
         analysis.tables.update(model_tables)
+        price = price_effect_block(extract, config)
+        if price is not None:
+            analysis.tables["model_price_effect"] = price[0]
+            section.blocks.insert(len(section.blocks) - 1, price[1])
         results.append(section)
     # Every NaN in a table or chart gets a note (churnlife.notes): known ones first, then a
     # generic warning for anything no note explains.
