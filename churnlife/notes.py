@@ -129,11 +129,8 @@ def km_notes(km: Any, unit: str) -> list[Note]:
                     f"Median tenure not reached: retention stayed above 50% (lowest {lowest:.1%}) "
                     f"through the longest tenure observed, {_num(curve.tenure.max())} {unit}.",
                     m.cohort,
-                    covers=(
-                        "median_tenure.median_tenure",
-                        "median_tenure.lower",
-                        "median_tenure.upper",
-                    ),
+                    covers=("median_tenure.median_tenure", "median_tenure.lower",
+                            "median_tenure.upper"),
                 )
             )
             continue

@@ -43,54 +43,27 @@ class Anomaly:
 # The rules are the ones spells.sql and events_normalised.sql apply; README.md states them too.
 HANDLED: tuple[Anomaly, ...] = (
     Anomaly("n_duplicate_rows", "exact duplicate event rows", "dropped; each event counted once"),
-    Anomaly(
-        "n_dropped_incomplete",
-        "rows without a customer id, event time or kind",
-        'dropped ([rules] incomplete_rows = "drop")',
-    ),
+    Anomaly("n_dropped_incomplete", "rows without a customer id, event time or kind",
+            'dropped ([rules] incomplete_rows = "drop")'),
     Anomaly("n_before_log", "events before the log start", "ignored (outside the window)"),
     Anomaly("n_after_as_of", "events after the as-of date", "ignored (outside the window)"),
-    Anomaly(
-        "n_before_signup",
-        "events dated before the customer's signup date",
-        "kept: the log's own dates win; the signup date only dates customers who began "
-        "before the log",
-    ),
-    Anomaly(
-        "n_cancel_without_spell",
-        "cancellations with no open spell",
-        "ignored (no start before them, or the spell had already ended)",
-    ),
-    Anomaly(
-        "n_failure_without_spell",
-        "unrecovered failed payments with no open spell",
-        "ignored (the spell had already ended, or none had begun)",
-    ),
-    Anomaly(
-        "n_start_in_open_spell",
-        "starts inside a spell that is still open",
-        "ignored: the spell continues from its first start",
-    ),
-    Anomaly(
-        "n_joined_returns",
-        "returns within the reactivation gap",
-        "joined to the earlier spell (not a churn and a new spell)",
-    ),
-    Anomaly(
-        "n_customers_without_spell",
-        "customers with events but no spell",
-        "left out: no start in the window and no signup date before the log start",
-    ),
-    Anomaly(
-        "n_nonpositive_price",
-        "spells starting at a price of zero or less",
-        'kept, with no price band ("(none)")',
-    ),
-    Anomaly(
-        "n_customers_listed_twice",
-        "customers listed more than once in the customers table",
-        "the earliest signup date is used",
-    ),
+    Anomaly("n_before_signup", "events dated before the customer's signup date",
+            "kept: the log's own dates win; the signup date only dates customers who began "
+            "before the log"),
+    Anomaly("n_cancel_without_spell", "cancellations with no open spell",
+            "ignored (no start before them, or the spell had already ended)"),
+    Anomaly("n_failure_without_spell", "unrecovered failed payments with no open spell",
+            "ignored (the spell had already ended, or none had begun)"),
+    Anomaly("n_start_in_open_spell", "starts inside a spell that is still open",
+            "ignored: the spell continues from its first start"),
+    Anomaly("n_joined_returns", "returns within the reactivation gap",
+            "joined to the earlier spell (not a churn and a new spell)"),
+    Anomaly("n_customers_without_spell", "customers with events but no spell",
+            "left out: no start in the window and no signup date before the log start"),
+    Anomaly("n_nonpositive_price", "spells starting at a price of zero or less",
+            'kept, with no price band ("(none)")'),
+    Anomaly("n_customers_listed_twice", "customers listed more than once in the customers table",
+            "the earliest signup date is used"),
     Anomaly("n_customer_rows_no_id", "customers-table rows without a customer id", "ignored"),
 )
 
@@ -132,7 +105,9 @@ def column_types(source: Source, role: str, columns: list[str]) -> dict[str, pl.
     return dict(zip(columns, frame.schema.values(), strict=True))
 
 
-def _text_column(config: Config, source: Source, relation_role: str, role: str, need: str) -> None:
+def _text_column(
+    config: Config, source: Source, relation_role: str, role: str, need: str
+) -> None:
     """A text column that must read as a time, a date or a number: refuse unreadable values and
     (times) a mix of values with and without a UTC offset."""
     from churnlife.extract import fill, read_query
@@ -142,11 +117,8 @@ def _text_column(config: Config, source: Source, relation_role: str, role: str, 
     cast = {"time": "TIMESTAMPTZ", "date": "DATE", "number": "DOUBLE"}[need]
     sql = fill(
         read_query("text_values"),
-        {
-            "relation": source.relation(relation_role),
-            "column": source.quote(column),
-            "cast_type": cast,
-        },
+        {"relation": source.relation(relation_role), "column": source.quote(column),
+         "cast_type": cast},
     )
     row = source.query(sql, {"offset_pattern": OFFSET_PATTERN}).to_dicts()[0]
     bad = int(row["n_unreadable"] or 0)
@@ -181,8 +153,7 @@ def _check_types(config: Config, source: Source) -> None:
         needs["signup_date"] = "date"
     types = column_types(source, "events", [config.columns[r] for r in roles_events])  # type: ignore[misc]
     checks: list[tuple[str, str, pl.DataType]] = [
-        ("events", r, types[config.columns[r]])
-        for r in roles_events  # type: ignore[index]
+        ("events", r, types[config.columns[r]]) for r in roles_events  # type: ignore[index]
     ]
     if not in_events and config.columns["signup_date"] is not None:
         cust = column_types(source, "customers", [config.columns["signup_date"]])  # type: ignore[list-item]
@@ -226,10 +197,8 @@ def check_log(config: Config, source: Source, params: dict[str, Any]) -> dict[st
     Runs after the column names are checked and before the event codes are."""
     from churnlife.extract import events_normalised_sql, fill, read_query
 
-    cols = {
-        r: source.quote(config.columns[r] or "")
-        for r in ("customer_id", "event_time", "event_kind")
-    }
+    cols = {r: source.quote(config.columns[r] or "") for r in
+            ("customer_id", "event_time", "event_kind")}
     events = source.relation("events")
     row = source.query(
         fill(read_query("incomplete_rows"), {"events": events, **cols}), {}
@@ -271,10 +240,7 @@ def check_log(config: Config, source: Source, params: dict[str, Any]) -> dict[st
 
 
 def count_anomalies(
-    config: Config,
-    source: Source,
-    params: dict[str, Any],
-    spells_relation: str,
+    config: Config, source: Source, params: dict[str, Any], spells_relation: str,
     customer_info_sql: str,
 ) -> dict[str, Any]:
     """The handled anomalies' counts (queries/quality.sql, queries/quality_customers.sql)."""
@@ -297,7 +263,9 @@ def count_anomalies(
                 "customer_id": source.quote(config.columns["customer_id"] or ""),
             },
         )
-        counts.update({k: int(v or 0) for k, v in source.query(cust, {}).to_dicts()[0].items()})
+        counts.update(
+            {k: int(v or 0) for k, v in source.query(cust, {}).to_dicts()[0].items()}
+        )
     return counts
 
 

@@ -35,7 +35,9 @@ def anomaly_rows(summary: dict[str, Any]) -> dict[str, str]:
     from churnlife.quality import HANDLED
 
     return {
-        f"{a.what} ({a.rule})": f"{int(summary[a.key] or 0):,}" for a in HANDLED if a.key in summary
+        f"{a.what} ({a.rule})": f"{int(summary[a.key] or 0):,}"
+        for a in HANDLED
+        if a.key in summary
     }
 
 
