@@ -24,6 +24,7 @@ examples:
   churnlife run --config my.toml --output out/2026-12
   churnlife models --config my.toml       fit hazard models per cohort; print their ranking
   churnlife run --config my.toml --models weibull,sbg,piecewise --horizon 60
+  churnlife compare --config my.toml --by plan,channel --strata signup_year
 """
 
 
@@ -76,6 +77,25 @@ def _parser() -> argparse.ArgumentParser:
     )
     models.add_argument("--config", required=True, help="path of the TOML config")
     _model_options(models)
+    cmp = sub.add_parser(
+        "compare",
+        help="compare cohorts: tests, hazard ratios, restricted mean tenure, churn by cause",
+        description="Compare cohorts of the log named in a config: log-rank family, a Cox model "
+        "on the survival counts, restricted mean tenure and churn by cause. Prints the results; "
+        "with --output also writes the full output folder (tables, charts, report.html).",
+        epilog="examples:\n  churnlife compare --config churnlife-demo/churnlife.toml --by "
+        "plan,channel\n  churnlife compare --config my.toml --by plan --strata channel "
+        "--horizon 12 --output out",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    cmp.add_argument("--config", required=True, help="path of the TOML config")
+    cmp.add_argument(
+        "--by", help="cohort attributes, comma-separated (default: the config's [cohorts] by)"
+    )
+    cmp.add_argument("--strata", help="an attribute to compare within (e.g. channel)")
+    cmp.add_argument("--ties", choices=["efron", "breslow"], default="efron", help="Cox ties")
+    cmp.add_argument("--horizon", type=float, help="restricted mean tenure horizon (tenure units)")
+    cmp.add_argument("--output", help="also write the output folder here")
     return p
 
 
@@ -160,10 +180,36 @@ def _run(
         f"{analysis.counts.height:,} count rows over {len(analysis.km.curves)} cohorts"
     )
     folder = write_outputs(analysis, Path(output).resolve() if output else None)
+    if analysis.comparison is not None:
+        from churnlife.sections.comparison import summary_lines
+
+        _say(summary_lines(analysis.comparison, config.tenure_unit)[0])
     for m in analysis.km.medians:
         med = "not reached" if m.median != m.median else f"{m.median:g} {config.tenure_unit}"
         _say(f"  median tenure, {m.cohort}: {med}")
     _say(f"  wrote {folder}/report.html ({time.perf_counter() - t0:.1f} s)")
+    return 0
+
+
+def _compare(args: argparse.Namespace) -> int:
+    from churnlife.compare import parse_by
+    from churnlife.config import load_config
+    from churnlife.pipeline import analyse, write_outputs
+    from churnlife.sections.comparison import summary_lines
+
+    t0 = time.perf_counter()
+    config = load_config(args.config)
+    options = {"ties": args.ties, "horizon": args.horizon, "strata": args.strata}
+    if args.by is not None:
+        options["by"] = parse_by(args.by)
+    _say(f"churnlife: reading {config.source.events} ({config.source.kind}) …")
+    analysis = analyse(config, models=(), compare=options)
+    assert analysis.comparison is not None
+    for line in summary_lines(analysis.comparison, config.tenure_unit):
+        _say(line)
+    if args.output:
+        folder = write_outputs(analysis, Path(args.output).resolve())
+        _say(f"  wrote {folder}/report.html ({time.perf_counter() - t0:.1f} s)")
     return 0
 
 
@@ -214,6 +260,8 @@ def main(argv: list[str] | None = None) -> int:
             return _models(args.config, args.models, args.horizon, args.band)
         if args.command == "check":
             return _check(args.config)
+        if args.command == "compare":
+            return _compare(args)
         _parser().print_help()
         return 2
     except UserError as err:

@@ -124,8 +124,15 @@ def _score(n: np.ndarray, d: np.ndarray, weight: str, rho: float, gamma: float):
 def _chi2(u: np.ndarray, v: np.ndarray) -> tuple[float, int]:
     # drop the last cohort: the k scores sum to zero
     uu, vv = u[:-1], v[:-1, :-1]
-    stat = float(uu @ np.linalg.solve(vv, uu)) if uu.size else 0.0
-    return stat, uu.size
+    if not uu.size:
+        return 0.0, 0
+    try:
+        return float(uu @ np.linalg.solve(vv, uu)), uu.size
+    except np.linalg.LinAlgError:
+        # Cohorts never at risk at the same churn tenures (e.g. signup quarters years apart)
+        # carry no comparison: a generalised inverse, with df its rank (as survdiff does).
+        rank = int(np.linalg.matrix_rank(vv))
+        return (float(uu @ np.linalg.pinv(vv) @ uu) if rank else 0.0), rank
 
 
 def _validate(counts: pl.DataFrame, weight: str, rho: float, gamma: float) -> None:
@@ -191,7 +198,7 @@ def logrank_test(
         exp,
         stat,
         df,
-        float(stats.chi2.sf(stat, df)),
+        float(stats.chi2.sf(stat, df)) if df else float("nan"),
         tuple(levels),
     )
 
@@ -233,14 +240,21 @@ def pairwise_tests(
     names = counts["cohort"].unique(maintain_order=True).to_list()
     rows = [logrank_test(counts, [a, b], weight, rho, gamma) for a, b in combinations(names, 2)]
     p = np.array([r.pvalue for r in rows])
+    # A pair never at risk at the same churn tenures has no test (NaN); the adjustments count
+    # only the pairs that were tested.
+    ok = np.isfinite(p)
+    p_holm, p_bonf = np.full(p.size, np.nan), np.full(p.size, np.nan)
+    if ok.any():
+        p_holm[ok] = holm(p[ok])
+        p_bonf[ok] = np.minimum(p[ok] * ok.sum(), 1.0)
     return pl.DataFrame(
         {
             "cohort_a": [r.cohorts[0] for r in rows],
             "cohort_b": [r.cohorts[1] for r in rows],
             "chi_square": [r.statistic for r in rows],
             "p": p,
-            "p_holm": holm(p) if p.size else p,
-            "p_bonferroni": np.minimum(p * p.size, 1.0),
+            "p_holm": p_holm,
+            "p_bonferroni": p_bonf,
         },
         schema_overrides={"cohort_a": pl.String, "cohort_b": pl.String},
     )

@@ -16,6 +16,7 @@ from typing import Any
 import polars as pl
 
 from churnlife import __version__
+from churnlife.compare import Comparison, compare_cohorts, comparison_notes
 from churnlife.config import Config
 from churnlife.extract import Extract, run_extract
 from churnlife.km import KaplanMeierResult, kaplan_meier
@@ -34,8 +35,8 @@ from churnlife.notes import (
 from churnlife.outputs import atomic_folder
 from churnlife.quality import anomaly_table
 from churnlife.report import Section, charts_in, render
-from churnlife.sections.comparison import Comparison, compare_cohorts, comparison_section
-from churnlife.sections.models import model_results
+from churnlife.sections.comparison import comparison_sections
+from churnlife.sections.models import model_results, price_effect_block
 from churnlife.sections.overview import cautions_section, data_section, settings_section
 from churnlife.sections.quality import notes_section, quality_section
 from churnlife.sections.retention import retention_section
@@ -84,20 +85,29 @@ def analyse(
     models: Sequence[str] | None = DEFAULT_MODELS,
     horizon: int | None = None,
     band: str = "delta",
+    compare: dict[str, Any] | None = None,
 ) -> Analysis:
     """Run the extract and the estimators for ``config``; nothing is written anywhere.
 
     ``models``: hazard models to fit per cohort (churnlife.models.suite.MODEL_NAMES; None or ()
     for none); ``horizon`` and ``band`` set their extrapolation (default twice the longest
-    observed tenure, delta-method bands)."""
+    observed tenure, delta-method bands). ``compare``: options for
+    ``churnlife.compare.compare_cohorts`` (by, strata, ties, horizon); without it the config's
+    cohorts are compared when there are two or more."""
     source = open_source(config)
     extract = run_extract(config, source)
     km = kaplan_meier(extract.counts, config.confidence, config.interval)
+    # numpy's overflow warnings from fits become one note each, not lines on the terminal
     comparing, fitting = NumericWarnings(), NumericWarnings()
-    with numeric_warnings(comparing):
-        comparison = compare_cohorts(
-            extract.counts, config.cohorts, horizon=float(max(config.retention_at))
-        )
+    comparison = None
+    if compare is not None or extract.counts["cohort"].n_unique() > 1:
+        with numeric_warnings(comparing):
+            comparison = compare_cohorts(
+                extract,
+                confidence=config.confidence,
+                preferred_horizons=tuple(config.retention_at),
+                **(compare or {}),
+            )
     analysis = Analysis(config, extract, km, comparison)
     analysis.tables = {
         "counts": extract.counts,
@@ -106,21 +116,15 @@ def analyse(
         "median_tenure": km.medians_table(),
         "data_quality": anomaly_table(extract.summary),
     }
-    if comparison is not None:
-        with numeric_warnings(comparing):  # the tables take exp() of the estimates
-            analysis.tables["cohort_tests"] = comparison.tests_table()
-            analysis.tables["cohort_pairs"] = comparison.pairwise
-            if comparison.cox is not None:
-                analysis.tables["hazard_ratios"] = comparison.cox.to_polars()
-            if comparison.restricted is not None:
-                analysis.tables["restricted_mean"] = comparison.restricted.to_polars()
-    with numeric_warnings(comparing):
+    with numeric_warnings(comparing):  # the tables and sections take exp() of estimates
+        if comparison is not None:
+            analysis.tables.update(comparison.tables())
         results = [
             settings_section(config),
             data_section(extract.summary),
             quality_section(extract.summary),
             retention_section(km, config.tenure_unit, config.retention_at),
-            comparison_section(comparison),
+            *comparison_sections(comparison, config.tenure_unit),
         ]
     if models:
         with numeric_warnings(fitting):
@@ -128,12 +132,16 @@ def analyse(
                 extract.counts, config.tenure_unit, config.confidence, config.retention_at,
                 models, horizon, band,
             )
+            price = price_effect_block(extract, config)
         analysis.models = fitted
         analysis.tables.update(model_tables)
+        if price is not None:
+            analysis.tables["model_price_effect"] = price[0]
+            section.blocks.insert(len(section.blocks) - 1, price[1])
         results.append(section)
     # Every NaN in a table or chart gets a note (churnlife.notes): known ones first, then a
     # generic warning for anything no note explains.
-    notes = km_notes(km, config.tenure_unit)
+    notes = km_notes(km, config.tenure_unit) + comparison_notes(comparison)
     if comparison is not None and comparison.cox is not None:
         cox = comparison.cox
         notes += fit_notes(

@@ -102,3 +102,28 @@ def test_loglik_gradient(spec, theta):
     assert np.isfinite(value)
     fd = _fd(ll, theta, h=1e-6)
     np.testing.assert_allclose(grad, fd, rtol=2e-5, atol=1e-4)
+
+
+REGRESSION_BASE = {
+    "exponential": [np.log(0.08)],
+    "weibull": [np.log(12.0), np.log(0.7)],
+    "gompertz": [np.log(0.05), -0.02],
+    "lognormal": [2.1, np.log(1.4)],
+    "loglogistic": [np.log(9.0), np.log(1.3)],
+    "gengamma": [2.3, np.log(1.1), 0.7],
+}
+
+
+@pytest.mark.parametrize("form", ["ph", "aft"])
+@pytest.mark.parametrize("family", list(REGRESSION_BASE))
+def test_regression_loglik_gradient(family, form):
+    from churnlife.models.covariates import regression_loglik
+    from churnlife.models.parametric import FAMILIES
+
+    data = _grouped()
+    cells = [(data, np.array([0.0, 1.0])), (data, np.array([1.0, 0.5])), (data, np.zeros(2))]
+    f = regression_loglik(cells, [x for _, x in cells], FAMILIES[family], form)
+    theta = np.array([*REGRESSION_BASE[family], 0.3, -0.2])
+    value, grad = f(theta)
+    assert np.isfinite(value)
+    np.testing.assert_allclose(grad, _fd(lambda th: f(th)[0], theta), rtol=2e-5, atol=1e-4)

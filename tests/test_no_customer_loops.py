@@ -15,6 +15,7 @@ ALLOWED = {
     ("churnlife/source.py", "columns"): "the database's table names, for a hint",
     ("churnlife/quality.py", "count_anomalies"): "the columns of one summary row",
     ("churnlife/cli.py", "_models"): "the model ranking, at most 12 rows per cohort",
+    ("churnlife/sections/comparison.py", "summary_lines"): "tests, coefficients and cohorts",
 }
 ROW_ITERATORS = {"iter_rows", "rows", "to_dicts", "iterrows", "itertuples", "fetchall"}
 

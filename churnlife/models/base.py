@@ -284,7 +284,7 @@ def maximise(
             continue
         with np.errstate(all="ignore"):
             res = optimize.minimize(
-                neg, x0, jac=True, method="BFGS", options={"gtol": 1e-9, "maxiter": 2000}
+                neg, x0, jac=True, method="BFGS", options={"gtol": 1e-8, "maxiter": 400}
             )
         val = float(res.fun)
         if best is None or val < best[0]:

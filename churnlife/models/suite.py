@@ -184,7 +184,9 @@ class HazardModels:
             cut = round(share * d.max_tenure)
             if cut < 2 or cut >= d.max_tenure:
                 continue
-            names = models or sorted({f.name for f in self.for_cohort(cohort)})
+            names = (
+                models if models is not None else sorted({f.name for f in self.for_cohort(cohort)})
+            )
             for name in names:
                 try:
                     out.append(

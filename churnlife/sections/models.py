@@ -41,7 +41,11 @@ def model_results(
     if fitted.fits:
         observed = fitted.observed_vs_fitted()
         bands = fitted.extrapolation(horizon, method=band)
-        backtests = fitted.backtest_table()
+        # the report shows each cohort's best model and three reference models: refit only those
+        shown = {"weibull", "sbg", "piecewise"} | {
+            fitted.best(c).name for c in fitted.cohorts if fitted.has_converged(c)
+        }
+        backtests = fitted.backtest_table(models=sorted(shown & set(models)))
         tables.update(
             {
                 "model_parameters": fitted.parameters(),
@@ -187,6 +191,29 @@ def models_section(
         lead="Smooth models of churn by tenure, how well each matches the observed curves, and "
         "what they imply past the longest tenure observed.",
     )
+
+
+def price_effect_block(extract, config) -> tuple[pl.DataFrame, Table] | None:
+    """The "after a price increase" hazard ratio per cohort (queries/episodes.sql), or None when
+    the config lists no price_change codes or no spell had an increase."""
+    from churnlife.models.covariates import episodes_counts, price_effects
+
+    if not config.event_codes.get("price_change"):
+        return None
+    table = price_effects(episodes_counts(extract, config), config.confidence)
+    if table.height == 0:
+        return None
+    pct = round(config.confidence * 100)
+    block = Table(
+        table,
+        caption="Churn hazard after a customer's first price increase relative to before, at the "
+        f"same tenure ({pct}% interval): each spell is split at the increase. All causes of churn "
+        "together; customers who got an increase were chosen by the business, not at random, so "
+        "this is an association.",
+        csv_name="model_price_effect.csv",
+        formats={"hazard_ratio": ".3f", "lower": ".3f", "upper": ".3f"},
+    )
+    return table, block
 
 
 def _beyond_points(bands: pl.DataFrame) -> list[int]:
