@@ -34,8 +34,9 @@ from churnlife.notes import (
 )
 from churnlife.outputs import atomic_folder
 from churnlife.quality import anomaly_table
-from churnlife.report import Section, charts_in, render
+from churnlife.report import Section, charts_in, headlines_in, render
 from churnlife.sections.comparison import comparison_sections
+from churnlife.sections.glance import glance_section
 from churnlife.sections.models import model_results, price_effect_block
 from churnlife.sections.overview import cautions_section, data_section, settings_section
 from churnlife.sections.quality import notes_section, quality_section
@@ -68,6 +69,7 @@ class Analysis:
             "settings": self.config.summary(),
             "data": {k: _plain(v) for k, v in self.extract.summary.items()},
             "median_tenure": {k: (None if v != v else v) for k, v in medians.items()},
+            "headlines": [h.as_dict() for h in headlines_in(self.sections)],
             "notes": [n.as_dict() for n in self.notes],
         }
 
@@ -161,7 +163,10 @@ def analyse(
         unexplained_values(analysis.tables, specs, notes, {"retention_curves": "km"}),
     )
     analysis.notes = notes
-    analysis.sections = [*results[:3], notes_section(notes), *results[3:], cautions_section(config)]
+    # settings, data, quality, results…: the summary and the notes first, the settings last
+    body = [notes_section(notes), *results[1:], results[0], cautions_section(config)]
+    glance = glance_section(body, extract.counts["cohort"].n_unique(), config.confidence)
+    analysis.sections = [glance, *body]
     return analysis
 
 

@@ -8,6 +8,7 @@ import polars as pl
 from churnlife.charts_compare import cause_incidence, hazard_ratio_forest, retention_heatmap
 from churnlife.compare import Comparison
 from churnlife.report import Chart, Section, Table, Text, esc
+from churnlife.sections.glance import restricted_mean_headlines
 
 
 def p_text(column: str = "p") -> pl.Expr:
@@ -191,6 +192,7 @@ def rmst_section(cmp: Comparison, unit: str) -> Section:
             ),
         ],
         lead=f"Average {unit} subscribed within the first {h}, per cohort.",
+        headlines=restricted_mean_headlines(cmp, unit),
     )
 
 

@@ -11,6 +11,7 @@ import polars as pl
 from churnlife.charts_models import extrapolation_chart, fits_on_km_chart, hazard_chart
 from churnlife.models.suite import DEFAULT_MODELS, HazardModels, fit_models
 from churnlife.report import Chart, Section, Table, Text, esc
+from churnlife.sections.glance import model_headlines
 
 CAUTIONS = (
     "Past the longest tenure a cohort has been observed, every figure comes from the model's "
@@ -57,6 +58,7 @@ def model_results(
     else:
         observed = bands = backtests = pl.DataFrame()
     section = models_section(fitted, ranking, observed, bands, backtests, unit, retention_at)
+    section.headlines = model_headlines(fitted, bands, unit)
     return fitted, tables, section
 
 

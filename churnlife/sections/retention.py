@@ -7,6 +7,7 @@ import polars as pl
 from churnlife.charts import MIN_AT_RISK, retention_curves
 from churnlife.km import KaplanMeierResult
 from churnlife.report import Chart, Section, Table
+from churnlife.sections.glance import km_headlines
 
 
 def retention_section(km: KaplanMeierResult, unit: str, retention_at: tuple[int, ...]) -> Section:
@@ -48,4 +49,5 @@ def retention_section(km: KaplanMeierResult, unit: str, retention_at: tuple[int,
             ),
         ],
         lead="What share of each cohort is still subscribed after each tenure, as observed.",
+        headlines=km_headlines(km, unit, retention_at),
     )
