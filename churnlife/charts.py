@@ -26,9 +26,12 @@ FONT = "Georgia, 'Times New Roman', serif"
 
 def _theme(chart: alt.Chart | alt.LayerChart) -> alt.Chart | alt.LayerChart:
     return (
-        chart.configure_axis(labelFont=FONT, titleFont=FONT, gridColor="#e6e1d6")
+        chart.configure_axis(
+            labelFont=FONT, titleFont=FONT, gridColor="#e6e1d6", labelFontSize=11, titleFontSize=12
+        )
         .configure_legend(labelFont=FONT, titleFont=FONT, labelLimit=260)
         .configure_title(font=FONT, anchor="start", fontSize=15)
+        .configure_header(labelFont=FONT, titleFont=FONT, labelFontSize=13)
         .configure_view(stroke=None)
     )
 

@@ -16,6 +16,10 @@ def retention_heatmap(grid: pl.DataFrame, unit: str, by: str) -> alt.Chart:
     """Retention per signup cohort (rows, oldest first) and tenure (columns). Cells are left
     empty where fewer than 10 customers were still at risk, or the cohort is not that old."""
     cohorts = sorted(grid["cohort"].unique().to_list())
+    # label every tenure on short grids, every 3rd or 6th on long ones (labels must not touch)
+    longest = int(grid["tenure"].max()) if grid.height else 1
+    step = 1 if longest <= 15 else 3 if longest <= 36 else 6
+    ticks = sorted({1, *range(step, longest + 1, step)})
     chart = (
         alt.Chart(grid)
         .mark_rect()
@@ -23,9 +27,9 @@ def retention_heatmap(grid: pl.DataFrame, unit: str, by: str) -> alt.Chart:
             x=alt.X(
                 "tenure:O",
                 title=f"Tenure ({unit})",
-                axis=alt.Axis(labelAngle=0, labelOverlap="greedy"),
+                axis=alt.Axis(labelAngle=0, values=ticks),
             ),
-            y=alt.Y("cohort:N", title=by.replace("_", " "), sort=cohorts),
+            y=alt.Y("cohort:N", title=by.replace("_", " ").capitalize(), sort=cohorts),
             color=alt.Color(
                 "retention:Q",
                 title="Still subscribed",

@@ -7,7 +7,7 @@ from __future__ import annotations
 import altair as alt
 import polars as pl
 
-from churnlife.charts import PALETTE, _theme
+from churnlife.charts import FONT, PALETTE, _theme
 
 
 def _model_colour(models: list[str]) -> alt.Color:
@@ -126,6 +126,7 @@ def extrapolation_chart(bands: pl.DataFrame, unit: str, confidence: float) -> al
         "curve:N",
         title="Cohort (model)",
         scale=alt.Scale(domain=curves, range=PALETTE[: len(curves)]),
+        legend=alt.Legend(symbolType="stroke", symbolOpacity=1, symbolStrokeWidth=3),
     )
     ends = (
         data.filter(~pl.col("beyond_data"))
@@ -171,7 +172,23 @@ def extrapolation_chart(bands: pl.DataFrame, unit: str, confidence: float) -> al
         .mark_rule(strokeDash=[2, 2], strokeWidth=1)
         .encode(x="last_observed:Q", color="curve:N")
     )
-    chart = alt.layer(band, line, rules).properties(
+    # the region where at least one curve is extrapolated, shaded and labelled
+    horizon = float(data["tenure"].max())
+    first_end = float(ends["last_observed"].min()) if ends.height else horizon
+    region = pl.DataFrame({"start": [first_end], "end": [horizon], "label": ["past the data →"]})
+    shade = (
+        alt.Chart(region)
+        .mark_rect(color="#e9e2d0", opacity=0.55)
+        .encode(x=alt.X("start:Q", title=f"Tenure ({unit})"), x2="end:Q")
+    )
+    label = (
+        alt.Chart(region)
+        .mark_text(
+            align="left", baseline="top", dx=6, dy=6, font=FONT, fontSize=12, color="#5f6b6d"
+        )
+        .encode(x=alt.X("start:Q", title=f"Tenure ({unit})"), y=alt.datum(1.0), text="label:N")
+    )
+    chart = alt.layer(shade, band, line, rules, label).properties(
         width=640,
         height=340,
         title=f"Retention extended past the data ({pct}% pointwise band; dashed = extrapolated)",

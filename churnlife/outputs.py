@@ -38,6 +38,9 @@ class OutputFolder:
     def text(self, name: str, content: str) -> None:
         (self.path / name).write_text(content, encoding="utf-8")
 
+    def data(self, name: str, content: bytes) -> None:
+        (self.path / name).write_bytes(content)
+
 
 @contextlib.contextmanager
 def atomic_folder(target: Path) -> Iterator[OutputFolder]:

@@ -195,7 +195,7 @@ def _model_notes(models: Any) -> list[Note]:
 
 
 def write_outputs(analysis: Analysis, folder: Path | None = None) -> Path:
-    """Write tables (CSV and Parquet), charts (SVG and Vega-Lite JSON), summary.json and
+    """Write tables (CSV and Parquet), charts (SVG, PNG and Vega-Lite JSON), summary.json and
     report.html into ``folder`` atomically."""
     import vl_convert as vlc
 
@@ -208,6 +208,7 @@ def write_outputs(analysis: Analysis, folder: Path | None = None) -> Path:
             spec = json_safe(chart.chart.to_dict())
             out.text(f"{chart.name}.vl.json", json.dumps(spec))
             out.text(f"{chart.name}.svg", vlc.vegalite_to_svg(spec))
+            out.data(f"{chart.name}.png", vlc.vegalite_to_png(spec, scale=2))
         out.text("summary.json", json.dumps(analysis.summary(), indent=2))
         subtitle = (
             f"Customer retention from {cfg.log_start} to {cfg.as_of}, tenure in {cfg.tenure_unit}"
