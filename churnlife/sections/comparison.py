@@ -48,14 +48,14 @@ def tests_section(cmp: Comparison, unit: str) -> Section:
             "would make it, weighting tenures differently (the emphasis column). They test "
             "for a difference, not its size or its cause; for the size see the hazard ratios "
             "and the restricted mean tenure below.",
-            csv_name="compare_tests.csv",
+            csv_name="cohort_tests.csv",
             formats={"chi_square": ".2f"},
         ),
         Table(
             cmp.logrank.to_polars(),
             caption="Churns observed in each cohort and the churns expected if every cohort had "
             "the pooled churn rate at each tenure (log-rank).",
-            csv_name="compare_observed_expected.csv",
+            csv_name="cohort_observed_expected.csv",
             formats={"observed": ".0f", "expected": ".1f"},
         ),
         Table(
@@ -63,7 +63,7 @@ def tests_section(cmp: Comparison, unit: str) -> Section:
             caption="Every pair of cohorts compared with the log-rank test. With many pairs some "
             "small p-values arise by chance; the Holm and Bonferroni columns adjust for the "
             "number of pairs (Holm is the less conservative of the two).",
-            csv_name="compare_pairwise.csv",
+            csv_name="cohort_pairs.csv",
             formats={"chi_square": ".2f"},
         ),
         Chart(
