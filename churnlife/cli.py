@@ -6,6 +6,7 @@ A user's mistake (``UserError``) prints one message and exits 2, with no traceba
 from __future__ import annotations
 
 import argparse
+import json
 import shutil
 import sys
 import time
@@ -14,6 +15,7 @@ from pathlib import Path
 
 from churnlife import __version__
 from churnlife.errors import InterruptedAfterWrite, UserError
+from churnlife.progress import shown_on
 
 EXAMPLES = """\
 examples:
@@ -50,6 +52,7 @@ def _parser() -> argparse.ArgumentParser:
     demo.add_argument("--customers", type=int, default=60_000, help="customers to simulate")
     demo.add_argument("--seed", type=int, default=20261202, help="random seed")
     demo.add_argument("--build-only", action="store_true", help="build the data; skip analysis")
+    _script_options(demo)
 
     for name, text in (
         ("run", "analyse the log named in a config and write the output folder"),
@@ -66,6 +69,7 @@ def _parser() -> argparse.ArgumentParser:
         if name == "run":
             cmd.add_argument("--output", help="output folder (default: [output] folder)")
             _model_options(cmd)
+            _script_options(cmd)
     models = sub.add_parser(
         "models",
         help="fit the hazard models per cohort and print their ranking; writes nothing",
@@ -96,7 +100,19 @@ def _parser() -> argparse.ArgumentParser:
     cmp.add_argument("--ties", choices=["efron", "breslow"], default="efron", help="Cox ties")
     cmp.add_argument("--horizon", type=float, help="restricted mean tenure horizon (tenure units)")
     cmp.add_argument("--output", help="also write the output folder here")
+    _script_options(cmp)
     return p
+
+
+def _script_options(cmd: argparse.ArgumentParser) -> None:
+    cmd.add_argument(
+        "--quiet", action="store_true", help="print nothing but errors (no progress, no summary)"
+    )
+    cmd.add_argument(
+        "--json",
+        action="store_true",
+        help="print the run's summary (summary.json) as JSON on stdout, and nothing else there",
+    )
 
 
 def _model_options(cmd: argparse.ArgumentParser) -> None:
@@ -153,8 +169,16 @@ def _models(config_path: str, models: str, horizon: int | None, band: str) -> in
     return 0
 
 
+_QUIET = False  # --quiet or --json: the progress lines below are not printed
+
+
 def _say(msg: str) -> None:
-    print(msg, flush=True)
+    if not _QUIET:
+        print(msg, flush=True)
+
+
+def _print_json(analysis: object) -> None:
+    print(json.dumps(analysis.summary(), indent=2), flush=True)  # type: ignore[attr-defined]
 
 
 def _run(
@@ -163,6 +187,7 @@ def _run(
     models: str | None = None,
     horizon: int | None = None,
     band: str = "delta",
+    as_json: bool = False,
 ) -> int:
     from churnlife.config import load_config
     from churnlife.pipeline import analyse, write_outputs
@@ -188,6 +213,8 @@ def _run(
         med = "not reached" if m.median != m.median else f"{m.median:g} {config.tenure_unit}"
         _say(f"  median tenure, {m.cohort}: {med}")
     _say(f"  wrote {folder}/report.html ({time.perf_counter() - t0:.1f} s)")
+    if as_json:
+        _print_json(analysis)
     return 0
 
 
@@ -210,6 +237,8 @@ def _compare(args: argparse.Namespace) -> int:
     if args.output:
         folder = write_outputs(analysis, Path(args.output).resolve())
         _say(f"  wrote {folder}/report.html ({time.perf_counter() - t0:.1f} s)")
+    if args.json:
+        _print_json(analysis)
     return 0
 
 
@@ -227,7 +256,7 @@ def _check(config_path: str) -> int:
     return 0
 
 
-def _demo(folder: str, customers: int, seed: int, build_only: bool) -> int:
+def _demo(folder: str, customers: int, seed: int, build_only: bool, as_json: bool) -> int:
     from churnlife.demo.generate import build_demo
 
     if customers < 100:
@@ -246,16 +275,27 @@ def _demo(folder: str, customers: int, seed: int, build_only: bool) -> int:
     )
     if build_only:
         return 0
-    return _run(str(config), None)
+    return _run(str(config), None, as_json=as_json)
 
 
 def main(argv: list[str] | None = None) -> int:
+    global _QUIET
     args = _parser().parse_args(argv)
+    quiet = getattr(args, "quiet", False)
+    _QUIET = quiet or getattr(args, "json", False)
+    # progress of long steps on stderr, only when it is a terminal (churnlife.progress)
+    with shown_on(sys.stderr, enabled=not quiet):
+        return _dispatch(args)
+
+
+def _dispatch(args: argparse.Namespace) -> int:
     try:
         if args.command == "demo":
-            return _demo(args.folder, args.customers, args.seed, args.build_only)
+            return _demo(args.folder, args.customers, args.seed, args.build_only, args.json)
         if args.command == "run":
-            return _run(args.config, args.output, args.models, args.horizon, args.band)
+            return _run(
+                args.config, args.output, args.models, args.horizon, args.band, args.json
+            )
         if args.command == "models":
             return _models(args.config, args.models, args.horizon, args.band)
         if args.command == "check":

@@ -107,6 +107,11 @@ class Comparison:
     heatmap_by: str
     notes: tuple[str, ...] = ()
 
+    def _repr_html_(self) -> str:  # shown in notebooks
+        from churnlife.notebook import comparison_html
+
+        return comparison_html(self)
+
     def cox_tests(self) -> pl.DataFrame | None:
         """The Cox model's global tests of "every hazard ratio is 1"."""
         if self.cox is None:

@@ -82,6 +82,11 @@ class KaplanMeierResult:
                 return c
         raise KeyError(f"no cohort {cohort!r}; cohorts are {[c.cohort for c in self.curves]}")
 
+    def _repr_html_(self) -> str:  # shown in notebooks
+        from churnlife.notebook import km_html
+
+        return km_html(self)
+
     def to_polars(self) -> pl.DataFrame:
         """Long table: cohort, tenure, at_risk, churned, survival, se, lower, upper."""
         return pl.concat(

@@ -33,6 +33,7 @@ from churnlife.notes import (
     unexplained_values,
 )
 from churnlife.outputs import atomic_folder
+from churnlife.progress import step
 from churnlife.quality import anomaly_table
 from churnlife.report import Section, charts_in, headlines_in, render
 from churnlife.sections.comparison import comparison_sections
@@ -56,6 +57,11 @@ class Analysis:
     tables: dict[str, pl.DataFrame] = field(default_factory=dict)
     models: Any = None  # churnlife.models.suite.HazardModels, when models were fitted
     notes: list[Note] = field(default_factory=list)  # warnings for the reader (churnlife.notes)
+
+    def _repr_html_(self) -> str:  # shown in notebooks: the headline figures, warnings, tables
+        from churnlife.notebook import analysis_html
+
+        return analysis_html(self)
 
     @property
     def counts(self) -> pl.DataFrame:
@@ -96,14 +102,15 @@ def analyse(
     observed tenure, delta-method bands). ``compare``: options for
     ``churnlife.compare.compare_cohorts`` (by, strata, ties, horizon); without it the config's
     cohorts are compared when there are two or more."""
-    source = open_source(config)
-    extract = run_extract(config, source)
+    with step("reading the log and counting spells"):
+        source = open_source(config)
+        extract = run_extract(config, source)
     km = kaplan_meier(extract.counts, config.confidence, config.interval)
     # numpy's overflow warnings from fits become one note each, not lines on the terminal
     comparing, fitting = NumericWarnings(), NumericWarnings()
     comparison = None
     if compare is not None or extract.counts["cohort"].n_unique() > 1:
-        with numeric_warnings(comparing):
+        with numeric_warnings(comparing), step("comparing cohorts"):
             comparison = compare_cohorts(
                 extract,
                 confidence=config.confidence,
@@ -129,7 +136,8 @@ def analyse(
             *comparison_sections(comparison, config.tenure_unit),
         ]
     if models:
-        with numeric_warnings(fitting):
+        bands = "bootstrap bands" if band == "bootstrap" else "bands"
+        with numeric_warnings(fitting), step(f"fitting hazard models and {bands}"):
             fitted, model_tables, section = model_results(
                 extract.counts, config.tenure_unit, config.confidence, config.retention_at,
                 models, horizon, band,
@@ -201,7 +209,7 @@ def write_outputs(analysis: Analysis, folder: Path | None = None) -> Path:
 
     target = Path(folder) if folder is not None else analysis.config.output_folder
     cfg = analysis.config
-    with atomic_folder(target) as out:
+    with atomic_folder(target) as out, step("writing tables, charts and the report"):
         for name, frame in analysis.tables.items():
             out.table(name, frame)
         for chart in charts_in(analysis.sections):

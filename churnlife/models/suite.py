@@ -89,6 +89,11 @@ class HazardModels:
     confidence: float
     _ranking: pl.DataFrame | None = field(default=None, repr=False)
 
+    def _repr_html_(self) -> str:  # shown in notebooks
+        from churnlife.notebook import models_html
+
+        return models_html(self)
+
     @property
     def cohorts(self) -> list[str]:
         return list(self.data)
