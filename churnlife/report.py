@@ -167,6 +167,7 @@ a.download { display:inline-block; border:1px solid var(--teal); border-radius:3
 dl.params { display:grid; grid-template-columns: max-content auto; gap:2px 18px;
             font: 14px/1.5 var(--sans); }
 dl.params dt { color:var(--muted); } dl.params dd { margin:0; }
+p.gist { font-size:19px; line-height:1.45; margin:14px 0 6px; max-width:860px; }
 .glance-group { margin:18px 0 8px; }
 .glance-group h3 { font: 600 15px/1.3 var(--sans); margin:0 0 8px; color:var(--teal-dark); }
 .glance-group h3 a { font-weight:400; font-size:12.5px; margin-left:8px; color:var(--teal); }

@@ -20,7 +20,7 @@ import pytest
 from churnlife.counts import counts_from_durations
 from churnlife.km import kaplan_meier
 from churnlife.report import Headline, Section, Table, render, table_html
-from churnlife.sections.glance import SLOTS, glance_section, km_headlines
+from churnlife.sections.glance import SLOTS, glance_section, km_headlines, retention_sentence
 
 
 def _six_mp(reference: Path):
@@ -64,6 +64,11 @@ def test_glance_figures_match_reference_km_and_medians(reference, ref_values):
     text = html.blocks[0].html
     assert "75.3%" in text and "50.3–88.9%" in text
     assert "23 weeks" in text and "8 weeks" in text and "4–11 weeks" in text
+    # the opening sentence reads the last tenure every cohort reached (placebo ends at 23)
+    assert retention_sentence(heads) == (
+        "After 20 weeks, 62.7% of 6-MP and 9.5% of placebo customers were still subscribed."
+    )
+    assert retention_sentence(heads) in text
 
 
 def test_headline_number_and_interval_text():

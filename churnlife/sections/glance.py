@@ -179,10 +179,11 @@ def _group_html(key: str, items: list[Headline]) -> str:
                     + "</td>"
                 )
             rows.append(f"<tr><td>{esc(c)}</td>{''.join(tds)}</tr>")
-        iv_name = first.interval and f" ({esc(first.interval)} below each figure)"
+        small = f'<p class="caption">Small figures: the {esc(first.interval)}.</p>'
         body = (
-            f'<div class="table-wrap"><table class="grid"><thead><tr><th>cohort{iv_name}</th>'
+            f'<div class="table-wrap"><table class="grid"><thead><tr><th>cohort</th>'
             f"{head}</tr></thead><tbody>{''.join(rows)}</tbody></table></div>"
+            + (small if first.interval else "")
         )
     else:
         cards = []
@@ -211,6 +212,30 @@ def _group_html(key: str, items: list[Headline]) -> str:
     )
 
 
+def retention_sentence(items: Sequence[Headline]) -> str:
+    """The summary's first sentence in plain words, e.g. "After 12 months, 82.9% of beans_annual
+    and 52.8% of beans_monthly customers were still subscribed." ("" without retention)."""
+    rows = [h for h in items if h.key == "retention"]
+    cohorts = list(dict.fromkeys(h.cohort for h in rows))
+    seen = [h for h in rows if h.value is not None]
+    labels = list(dict.fromkeys(h.label for h in seen))
+    complete = [lab for lab in labels if sum(h.label == lab for h in seen) == len(cohorts)]
+    if not complete:
+        return ""
+    pick = next((lab for lab in complete if lab.split()[1:2] == ["12"]), complete[-1])
+    chosen = [h for h in seen if h.label == pick]
+    lead = pick[0].upper() + pick[1:]
+    if len(chosen) == 1:
+        h = chosen[0]
+        return (
+            f"{lead}, {h.number()} of customers were still subscribed ({h.interval} "
+            f"{h.interval_text()})."
+        )
+    parts = [f"{h.number()} of {h.cohort}" for h in chosen]
+    joined = ", ".join(parts[:-1]) + f" and {parts[-1]}"
+    return f"{lead}, {joined} customers were still subscribed."
+
+
 def glance_section(sections: Sequence[Section], n_cohorts: int, confidence: float) -> Section:
     """The summary up front, from the headlines of ``sections`` (in their order)."""
     items = headlines_in(list(sections))
@@ -218,7 +243,9 @@ def glance_section(sections: Sequence[Section], n_cohorts: int, confidence: floa
     for h in items:
         groups.setdefault(h.key, []).append(h)
     keys = [k for k in ORDER if k in groups] + [k for k in groups if k not in ORDER]
-    parts = [_group_html(k, groups[k]) for k in keys]
+    sentence = retention_sentence(items)
+    parts = [f'<p class="gist">{esc(sentence)}</p>'] if sentence else []
+    parts += [_group_html(k, groups[k]) for k in keys]
     empty = [title for key, title in SLOTS.items() if key not in groups]
     if empty:
         cards = "".join(
