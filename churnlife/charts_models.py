@@ -39,7 +39,7 @@ def hazard_chart(observed: pl.DataFrame, models: list[str], unit: str) -> alt.VC
                 x=x,
                 y=alt.Y(
                     "empirical_hazard:Q",
-                    title="Churn rate in the interval",
+                    title=f"Churned per {unit.removesuffix('s')} (share of those at risk)",
                     axis=alt.Axis(format="%"),
                 ),
                 size=alt.Size("at_risk:Q", title="At risk", scale=alt.Scale(range=[8, 120])),

@@ -16,6 +16,9 @@ ALLOWED = {
     ("churnlife/quality.py", "count_anomalies"): "the columns of one summary row",
     ("churnlife/cli.py", "_models"): "the model ranking, at most 12 rows per cohort",
     ("churnlife/sections/comparison.py", "summary_lines"): "tests, coefficients and cohorts",
+    ("churnlife/notebook.py", "frame_html"): "rows capped by head(rows)",
+    ("churnlife/sections/glance.py", "km_headlines"): "cohorts × the config's retention_at",
+    ("churnlife/sections/glance.py", "restricted_mean_headlines"): "one row per cohort",
 }
 ROW_ITERATORS = {"iter_rows", "rows", "to_dicts", "iterrows", "itertuples", "fetchall"}
 
