@@ -66,6 +66,10 @@ CAUTIONS = (
 )
 
 
+class NothingToValue(UserError):
+    """No cohort has a usable model: the run goes on without the value stage (with a note)."""
+
+
 @dataclass
 class CohortValue:
     """One cohort's inputs to valuation."""
@@ -207,7 +211,7 @@ def value_customers(
         )
         cohorts.append(CohortValue(cohort, fit, curve, path, rate, cash, active, inputs))
     if not cohorts:
-        raise UserError(
+        raise NothingToValue(
             "no cohort could be valued: no hazard model converged with a usable covariance. "
             "Fit models (drop --no-models) or group small cohorts together."
         )
