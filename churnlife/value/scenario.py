@@ -25,6 +25,7 @@ The break-even response is the hazard ratio at which the active base's value is 
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 import polars as pl
@@ -168,6 +169,12 @@ class ScenarioInputs:
     def cash(self, change: float) -> np.ndarray:
         return self.margin_rate * self.revenue * (1 + change) - self.cost
 
+    @cached_property
+    def today(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """(new, base) at today's price for the point curve, then for the draws (computed once:
+        every scenario compares against them)."""
+        return (*self.values(self.curve.survival, 0.0), *self.values(self.curve.draws, 0.0))
+
     def values(self, curve_s: np.ndarray, change: float) -> tuple[np.ndarray, np.ndarray]:
         """(value per new customer, value of the active base) per row of ``curve_s``."""
         cash = self.cash(change)
@@ -225,9 +232,8 @@ def scenario(
     curve = inputs.curve
     hr = response.ratio_for(change)
     hr_draws = response.draw_ratios(change, curve.draws.shape[0], rng)
-    new0, base0 = inputs.values(curve.survival, 0.0)
+    new0, base0, d_new0, d_base0 = inputs.today
     new1, base1 = inputs.values(_scaled_rows(curve.survival, hr), change)
-    d_new0, d_base0 = inputs.values(curve.draws, 0.0)
     d_new1, d_base1 = inputs.values(_scaled_rows(curve.draws, hr_draws), change)
     return ScenarioResult(
         curve.cohort, change, hr, float(new0[0]), float(new1[0]), float(base0[0]),
@@ -253,7 +259,7 @@ def break_even(inputs: list[ScenarioInputs], change: float) -> float:
     ``change`` equals today's; NaN when nobody is active or no ratio in [0.01, 100] balances."""
     if change == 0 or sum(float(i.active.sum()) for i in inputs) == 0:
         return float("nan")
-    today = sum(float(i.values(i.curve.survival, 0.0)[1][0]) for i in inputs)
+    today = sum(float(i.today[1][0]) for i in inputs)
 
     def gap(log_hr: float) -> float:
         hr = np.exp(log_hr)

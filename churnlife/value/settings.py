@@ -151,6 +151,13 @@ def parse_value_settings(raw: dict[str, Any]) -> ValueSettings:
     model = raw.get("model", "best")
     if not isinstance(model, str):
         raise UserError('config: [value] model must be a model name in quotes, or "best".')
+    from churnlife.models.suite import MODEL_NAMES  # here: the models need no config
+
+    if model != "best" and model not in MODEL_NAMES:
+        raise UserError(
+            f'config: [value] model = "{model}" is not a hazard model.'
+            f"{did_you_mean(model, MODEL_NAMES)} Use one of: best, {', '.join(MODEL_NAMES)}."
+        )
     draws = raw.get("draws", 400)
     if isinstance(draws, bool) or not isinstance(draws, int) or not 50 <= draws <= 20000:
         raise UserError("config: [value] draws must be a whole number from 50 to 20000.")

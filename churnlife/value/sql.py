@@ -34,6 +34,7 @@ def run_value_query(
     config: Config,
     params: dict[str, Any],
     cohorts: tuple[str, ...] | None = None,
+    extra_slots: dict[str, str] | None = None,
 ) -> pl.DataFrame:
     """Fill and run queries/<name>.sql on the staged spells, grouped by ``cohorts`` (default: the
     run's cohorts). Only cohort × tenure sized results come back."""
@@ -44,5 +45,6 @@ def run_value_query(
         "period_months": _period_months_expr(config),
         "unit": config.tenure_unit,
         **cohort_slots(tuple(extract.cohort_columns if cohorts is None else cohorts)),
+        **(extra_slots or {}),
     }
     return source.query(fill(read_query(name), slots), params)

@@ -34,8 +34,8 @@ from churnlife.value.scenario import (
     ScenarioInputs,
     combined,
     price_responses,
-    scenario,
 )
+from churnlife.value.scenario import scenario as price_scenario
 from churnlife.value.settings import ValueSettings
 from churnlife.value.sql import run_value_query
 from churnlife.value.worth import (
@@ -64,6 +64,9 @@ CAUTIONS = (
     "not at random; it is only as wide as the increases seen. churnlife supports a pricing "
     "decision, it does not guarantee its outcome.",
 )
+
+
+TAIL_FREE = ("piecewise",)  # models "best" passes over for the tail (name them to use them)
 
 
 class NothingToValue(UserError):
@@ -135,7 +138,7 @@ class Valuation:
 
 def choose_fit(models, cohort: str, name: str) -> ModelFit:
     """The cohort's model for valuation: ``name``, or for "best" the converged fit with the
-    lowest AIC whose covariance is finite (intervals need it)."""
+    lowest AIC whose covariance is finite (intervals need it), leaving out TAIL_FREE models."""
     fits = [f for f in models.for_cohort(cohort) if f.convergence.converged]
     if name != "best":
         known = sorted({f.name for f in models.fits})
@@ -147,7 +150,9 @@ def choose_fit(models, cohort: str, name: str) -> ModelFit:
                 'or use "best".'
             )
         return chosen[0]
-    usable = [f for f in fits if np.all(np.isfinite(f.cov))]
+    # the piecewise model's tail is its last band's constant hazard, an assumption rather than
+    # a fitted shape: "best" looks among the models whose form carries past the data
+    usable = [f for f in fits if np.all(np.isfinite(f.cov)) and f.name not in TAIL_FREE]
     if not usable:
         raise UserError(f"no model with a usable covariance for cohort {cohort!r}.")
     return min(usable, key=lambda f: f.aic)
@@ -169,8 +174,10 @@ def value_customers(
     km_table: pl.DataFrame,
     price_change: float | None = None,
     seed: int = 0,
+    scenario: bool = True,
 ) -> Valuation:
-    """Value every cohort that has a usable model (see the module docstring)."""
+    """Value every cohort that has a usable model (see the module docstring); ``scenario``
+    False leaves out the price response and scenario."""
     settings = config.value
     rng = np.random.default_rng(seed)
     change = settings.price_change if price_change is None else price_change
@@ -215,7 +222,11 @@ def value_customers(
             "no cohort could be valued: no hazard model converged with a usable covariance. "
             "Fit models (drop --no-models) or group small cohorts together."
         )
-    responses, response_table = price_responses(extract, config, [c.cohort for c in cohorts])
+    responses, response_table = (
+        price_responses(extract, config, [c.cohort for c in cohorts])
+        if scenario
+        else ([], pl.DataFrame())
+    )
     v = Valuation(settings, config.tenure_unit, config.confidence, cohorts, responses)
     v.skipped = skipped
     v.tables = {
@@ -387,7 +398,9 @@ def _scenarios(
     valued = [c for c in v.cohorts if c.cohort in by_cohort]
 
     def rows_for(x: float) -> list[dict]:
-        results = [scenario(c.scenario_inputs, by_cohort[c.cohort], x, rng) for c in valued]
+        results = [
+            price_scenario(c.scenario_inputs, by_cohort[c.cohort], x, rng) for c in valued
+        ]
         out = [r.row(v.confidence) for r in results]
         if len(results) > 1:
             out.append(combined(results, [c.scenario_inputs for c in valued]).row(v.confidence))

@@ -171,3 +171,24 @@ def interval(draws: np.ndarray, confidence: float) -> tuple[np.ndarray, np.ndarr
             return nan, nan
         lo, hi = np.nanquantile(draws, [a, 1 - a], axis=0)
     return lo, hi
+
+
+_GL_NODES, _GL_WEIGHTS = np.polynomial.legendre.leggauss(16)
+
+
+def model_mean_residual_life(survival_fn, taus: np.ndarray, upper: float) -> np.ndarray:
+    """Mean remaining lifetime of a continuous-time model, ∫_τ^U S(u) du / S(τ), for whole
+    tenures τ: Gauss–Legendre quadrature with 16 nodes on every unit interval up to ``upper``
+    (the fully parametric counterpart of ``mean_remaining_lifetime``; take ``upper`` large to
+    approach the unrestricted mean)."""
+    top = int(np.ceil(upper))
+    taus = np.asarray(taus, dtype=int)
+    if np.any(taus < 0) or np.any(taus > top):
+        raise UserError("tenures for the mean remaining lifetime must lie within 0..upper.")
+    x = (np.arange(top)[:, None] + (_GL_NODES[None, :] + 1) / 2).ravel()
+    s = np.asarray(survival_fn(x), dtype=float).reshape(top, _GL_NODES.size)
+    per_unit = s @ (_GL_WEIGHTS / 2)
+    after = np.concatenate([np.cumsum(per_unit[::-1])[::-1], [0.0]])  # ∫ from τ to top
+    s_tau = np.asarray(survival_fn(taus.astype(float)), dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(s_tau > 0, after[taus] / s_tau, 0.0)
