@@ -37,11 +37,12 @@ from churnlife.progress import step
 from churnlife.quality import anomaly_table
 from churnlife.report import Section, charts_in, headlines_in, render
 from churnlife.sections.comparison import comparison_sections
-from churnlife.sections.glance import glance_section
+from churnlife.sections.glance import glance_section, value_headlines
 from churnlife.sections.models import model_results, price_effect_block
 from churnlife.sections.overview import cautions_section, data_section, settings_section
 from churnlife.sections.quality import notes_section, quality_section
 from churnlife.sections.retention import retention_section
+from churnlife.sections.value import value_notes, value_section
 from churnlife.source import open_source
 
 
@@ -57,6 +58,7 @@ class Analysis:
     tables: dict[str, pl.DataFrame] = field(default_factory=dict)
     models: Any = None  # churnlife.models.suite.HazardModels, when models were fitted
     notes: list[Note] = field(default_factory=list)  # warnings for the reader (churnlife.notes)
+    value: Any = None  # churnlife.value.valuation.Valuation, when customers were valued
 
     def _repr_html_(self) -> str:  # shown in notebooks: the headline figures, warnings, tables
         from churnlife.notebook import analysis_html
@@ -76,6 +78,7 @@ class Analysis:
             "data": {k: _plain(v) for k, v in self.extract.summary.items()},
             "median_tenure": {k: (None if v != v else v) for k, v in medians.items()},
             "headlines": [h.as_dict() for h in headlines_in(self.sections)],
+            "value": json_safe(self.value.headline()) if self.value is not None else None,
             "notes": [n.as_dict() for n in self.notes],
         }
 
@@ -94,6 +97,8 @@ def analyse(
     horizon: int | None = None,
     band: str = "delta",
     compare: dict[str, Any] | None = None,
+    value: bool = True,
+    price_change: float | None = None,
 ) -> Analysis:
     """Run the extract and the estimators for ``config``; nothing is written anywhere.
 
@@ -101,7 +106,8 @@ def analyse(
     for none); ``horizon`` and ``band`` set their extrapolation (default twice the longest
     observed tenure, delta-method bands). ``compare``: options for
     ``churnlife.compare.compare_cohorts`` (by, strata, ties, horizon); without it the config's
-    cohorts are compared when there are two or more."""
+    cohorts are compared when there are two or more. ``value``: value the customers (needs the
+    models; settings in [value]); ``price_change`` overrides [value] price_change."""
     with step("reading the log and counting spells"):
         source = open_source(config)
         extract = run_extract(config, source)
@@ -149,6 +155,22 @@ def analyse(
             analysis.tables["model_price_effect"] = price[0]
             section.blocks.insert(len(section.blocks) - 1, price[1])
         results.append(section)
+    valuing, not_valued = NumericWarnings(), None
+    if models and value and analysis.models is not None and analysis.models.fits:
+        from churnlife.value.valuation import NothingToValue, value_customers
+
+        with numeric_warnings(valuing), step("valuing customers"):
+            try:
+                analysis.value = value_customers(
+                    extract, config, analysis.models, analysis.tables["km"], price_change
+                )
+            except NothingToValue as why:
+                not_valued = Note("warning", "value", f"Customers were not valued: {why}")
+        if analysis.value is not None:
+            analysis.tables.update(analysis.value.tables)
+            section = value_section(analysis.value, config.tenure_unit)
+            section.headlines = value_headlines(analysis.value)  # for "At a glance"
+            results.append(section)
     # Every NaN in a table or chart gets a note (churnlife.notes): known ones first, then a
     # generic warning for anything no note explains.
     notes = km_notes(km, config.tenure_unit) + comparison_notes(comparison)
@@ -164,7 +186,12 @@ def analyse(
     if analysis.models is not None:
         with numeric_warnings(fitting):
             notes += _model_notes(analysis.models)
+    if analysis.value is not None:
+        notes += value_notes(analysis.value)
+    if not_valued is not None:
+        notes.append(not_valued)
     notes += comparing.note("comparing cohorts") + fitting.note("fitting the hazard models")
+    notes += valuing.note("valuing customers")
     specs = {c.name: c.chart.to_dict() for c in charts_in(results)}
     notes = collect(
         notes,

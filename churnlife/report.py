@@ -67,7 +67,7 @@ class Headline:
             return self.missing
         if v in (float("inf"), float("-inf")):
             return "not reached" if v > 0 else "−∞"
-        text = format(v, self.fmt)
+        text = format(v, self.fmt).replace("-", "−")
         return f"{text} {self.unit}" if self.unit else text
 
     def interval_text(self) -> str:
@@ -79,7 +79,10 @@ class Headline:
         hi_s = "not reached" if hi == float("inf") else format(hi, self.fmt)
         if self.fmt.endswith("%") and lo_s.endswith("%") and hi_s.endswith("%"):
             lo_s = lo_s[:-1]
-        text = f"{lo_s}–{hi_s}"
+        # a range that crosses zero or carries signs reads "−270 to +790", not "-270–+790"
+        signed = lo < 0 or "+" in self.fmt
+        text = f"{lo_s} to {hi_s}" if signed else f"{lo_s}–{hi_s}"
+        text = text.replace("-", "−")
         return f"{text} {self.unit}" if self.unit and hi != float("inf") else text
 
     def as_dict(self) -> dict[str, Any]:

@@ -19,6 +19,9 @@ ALLOWED = {
     ("churnlife/notebook.py", "frame_html"): "rows capped by head(rows)",
     ("churnlife/sections/glance.py", "km_headlines"): "cohorts × the config's retention_at",
     ("churnlife/sections/glance.py", "restricted_mean_headlines"): "one row per cohort",
+    ("churnlife/sections/value.py", "value_lines"): "one row per cohort",
+    ("churnlife/value/scenario.py", "price_responses"): "one row per cohort",
+    ("churnlife/value/valuation.py", "headline"): "one row per cohort",
 }
 ROW_ITERATORS = {"iter_rows", "rows", "to_dicts", "iterrows", "itertuples", "fetchall"}
 

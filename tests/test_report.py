@@ -79,6 +79,8 @@ def test_headline_number_and_interval_text():
     money = Headline("v", "T", "", 1234.5, 1100.25, 1390.0, fmt=",.2f", unit="EUR")
     assert money.number() == "1,234.50 EUR" and money.interval_text() == "1,100.25–1,390.00 EUR"
     assert Headline("k", "T", "", None, missing="not reached").number() == "not reached"
+    change = Headline("p", "T", "", 226447.0, -270806.0, 789339.0, fmt="+,.0f")
+    assert change.number() == "+226,447" and change.interval_text() == "−270,806 to +789,339"
     d = m.as_dict()
     assert d["value"] == 14.0 and d["lower"] == 13.0 and d["unit"] == "months"
     assert json.loads(json.dumps(Headline("k", "T", "", 3.0, 1.0, float("inf")).as_dict()))[
@@ -176,3 +178,16 @@ def test_written_folder_has_png_and_svg_per_chart_and_headlines(demo_config, tmp
             assert row["retention"][0] == pytest.approx(h["value"], abs=1e-12)
     extra = [h for h in summary["headlines"] if h["key"] == "extrapolated"]
     assert all("observed only to" in h["caution"] for h in extra)
+    # the value stage's figures fill their places in the summary, with the written numbers
+    assert set(SLOTS) <= kinds and "not computed in this run" not in html
+    new = pl.read_csv(out / "value_new_customer.csv")
+    for h in (h for h in summary["headlines"] if h["key"] == "value_new_customer"):
+        row = new.filter(pl.col("cohort") == h["cohort"]).row(0, named=True)
+        assert (h["value"], h["lower"], h["upper"]) == pytest.approx(
+            (row["value"], row["lower"], row["upper"]), rel=1e-12
+        )
+    base = summary["value"]["active_base_value"]
+    whole = [h for h in summary["headlines"] if h["key"] == "value_active_base"]
+    assert any(
+        h["cohort"] == "all cohorts" and h["value"] == pytest.approx(base["value"]) for h in whole
+    )

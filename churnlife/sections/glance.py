@@ -155,6 +155,93 @@ def model_headlines(models: Any, bands: pl.DataFrame, unit: str) -> list[Headlin
     return out
 
 
+def _rows(table: pl.DataFrame | None, needed: Sequence[str]) -> list[dict[str, Any]]:
+    """The rows of a value table, or none if it is missing or lacks a column the summary reads."""
+    if table is None or table.height == 0 or not set(needed) <= set(table.columns):
+        return []
+    return table.to_dicts()  # one row per cohort
+
+
+def value_headlines(valuation: Any) -> list[Headline]:
+    """Value per new customer, value of the active base and the price scenario's change in base
+    value (churnlife.value), in the log's currency, each with its interval and caution."""
+    if valuation is None:
+        return []
+    t = valuation.tables
+    pct = round(valuation.confidence * 100)
+    money = {"fmt": ",.0f", "interval": f"{pct}% interval", "section": "value"}
+    out = []
+    for r in _rows(t.get("value_new_customer"), ("cohort", "model", "value", "lower", "upper")):
+        beyond = r.get("share_of_value_beyond_data")
+        caution = (
+            f"{r['cohort']}: {beyond:.0%} of this value comes from tenures no customer has "
+            f"reached yet ({r['model']} model)."
+            if beyond is not None and beyond == beyond and beyond > 0
+            else ""
+        )
+        out.append(
+            Headline(
+                "value_new_customer",
+                "Value per new customer (discounted, in the log's currency)",
+                "",
+                r["value"],
+                r["lower"],
+                r["upper"],
+                cohort=r["cohort"],
+                caution=caution,
+                **money,
+            )
+        )
+    base_cols = ("cohort", "active_customers", "value", "lower", "upper")
+    for r in _rows(t.get("value_active_base"), base_cols):
+        out.append(
+            Headline(
+                "value_active_base",
+                "Value of today's active customers from now on (discounted)",
+                f"{int(r['active_customers']):,} active customers",
+                r["value"],
+                r["lower"],
+                r["upper"],
+                cohort=r["cohort"],
+                caution="Each active customer is valued from their current tenure; past the "
+                "observed tenures the figure rests on the models.",
+                **money,
+            )
+        )
+    scen_cols = (
+        "cohort",
+        "price_change",
+        "change_in_base_value",
+        "change_in_base_lower",
+        "change_in_base_upper",
+        "break_even_hazard_ratio",
+    )
+    for r in _rows(t.get("price_scenario"), scen_cols):
+        hr, even = r.get("hazard_ratio"), r["break_even_hazard_ratio"]
+        pays = (
+            f"{r['cohort']}: the change pays while churn after it rises by less than "
+            f"×{even:.2f}" + (f" (estimated ×{hr:.2f})." if hr is not None and hr == hr else ".")
+            if even is not None and even == even
+            else ""
+        )
+        out.append(
+            Headline(
+                "price_scenario",
+                f"Price change of {r['price_change']:+.0%}: change in the base's value",
+                "",
+                r["change_in_base_value"],
+                r["change_in_base_lower"],
+                r["change_in_base_upper"],
+                cohort=r["cohort"],
+                caution=pays,
+                fmt="+,.0f",
+                interval=f"{pct}% interval",
+                section="value",
+            )
+        )
+    return out
+
+
 def _group_html(key: str, items: list[Headline]) -> str:
     first = items[0]
     link = f'<a href="#{esc(first.section)}">details</a>' if first.section else ""
@@ -276,6 +363,11 @@ def glance_section(sections: Sequence[Section], n_cohorts: int, confidence: floa
         general.append(
             "Money figures rest on the retention curves and their extrapolation; they support a "
             "decision, they do not guarantee its outcome."
+        )
+    if any(h.key == "price_scenario" for h in items):
+        general.append(
+            "The price response is estimated from past increases the business chose, not from a "
+            "randomised test, and only over the sizes of increase seen."
         )
     box = "".join(f"<li>{esc(t)}</li>" for t in general)
     parts.append(
