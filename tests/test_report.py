@@ -155,7 +155,7 @@ def test_page_policy_forbids_loading_anything():
 def test_written_folder_has_png_and_svg_per_chart_and_headlines(demo_config, tmp_path):
     from churnlife.pipeline import analyse, write_outputs
 
-    run = analyse(demo_config, models=("weibull", "sbg"))
+    run = analyse(demo_config, models=("weibull", "sbg", "exponential"))
     out = write_outputs(run, tmp_path / "out")
     specs = sorted(p.name.removesuffix(".vl.json") for p in out.glob("*.vl.json"))
     assert specs
@@ -178,6 +178,21 @@ def test_written_folder_has_png_and_svg_per_chart_and_headlines(demo_config, tmp
             assert row["retention"][0] == pytest.approx(h["value"], abs=1e-12)
     extra = [h for h in summary["headlines"] if h["key"] == "extrapolated"]
     assert all("observed only to" in h["caution"] for h in extra)
+    # each extrapolated figure is its model's curve at the horizon; the caution gives where the
+    # other fitted models land there (model dependence)
+    bands = pl.read_csv(out / "model_extrapolation.csv")
+    for h in extra:
+        last = bands.filter(pl.col("cohort") == h["cohort"]).sort("tenure").row(-1, named=True)
+        assert h["value"] == pytest.approx(last["survival"], abs=1e-12)
+        fit = run.models.get(h["cohort"], last["model"])
+        assert f"observed only to {int(fit.max_observed_tenure)} " in h["caution"]
+        others = [
+            float(f.survival(np.array([float(last["tenure"])]))[0])
+            for f in run.models.for_cohort(h["cohort"])
+            if f.convergence.converged and f.name != last["model"]
+        ]
+        assert len(others) == 2  # three models fitted
+        assert f"give {min(others):.1%} to {max(others):.1%} at {last['tenure']} " in h["caution"]
     # the value stage's figures fill their places in the summary, with the written numbers
     assert set(SLOTS) <= kinds and "not computed in this run" not in html
     new = pl.read_csv(out / "value_new_customer.csv")
