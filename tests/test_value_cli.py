@@ -34,14 +34,16 @@ def test_value_command_prints_and_writes(demo_copy: Path, capsys):
 @pytest.mark.parametrize(
     "extra, words",
     [
-        ("[value]\ndiscount_rte = 0.1\n", "discount_rate"),
-        ("[value]\ntiming = \"middle\"\n", "timing"),
-        ("[value]\nmargin_rate = 1.5\n", "margin_rate"),
-        ("[value]\nmodel = \"weibul\"\n", "weibull"),
+        ("discount_rte = 0.1\n", "discount_rate"),
+        ('timing = "middle"\n', "timing"),
+        ("horizon_years = -1\n", "horizon_years"),
+        ('model = "weibul"\n', "weibull"),
     ],
 )
 def test_bad_value_settings_exit_2(demo_copy: Path, capsys, extra: str, words: str):
-    demo_copy.write_text(demo_copy.read_text() + "\n" + extra)
+    text = demo_copy.read_text()
+    assert "[value]\n" in text
+    demo_copy.write_text(text.replace("[value]\n", "[value]\n" + extra, 1))
     out = demo_copy.parent / "out"
     assert main(["value", "--config", str(demo_copy), "--output", str(out)]) == 2
     err = capsys.readouterr().err

@@ -65,6 +65,22 @@ def value_section(v: Valuation, unit: str) -> Section:
             },
         )
     )
+    channels = t.get("value_by_channel")
+    if channels is not None and channels.height:
+        blocks.append(
+            Table(
+                channels,
+                caption="Per new customer by cohort and acquisition channel: each cell's own "
+                "curve (its cohort's model refitted) and revenue; payback tenure against the "
+                f"channel's acquisition cost ({unit}; 0 = the first payment covers it). "
+                "Channels differ in who they bring, not only in what they cost.",
+                csv_name="value_by_channel.csv",
+                formats={"value": MONEY, "lower": MONEY, "upper": MONEY,
+                         "acquisition_cost": MONEY, "value_after_acquisition": MONEY,
+                         "payback_tenure": ".0f", "payback_lower": ".0f",
+                         "payback_upper": ".0f"},
+            )
+        )
     base = t["value_active_base"]
     blocks.append(
         Table(
@@ -194,6 +210,11 @@ def value_notes(v: Valuation) -> list[Note]:
                 "value_new_customer.payback_lower",
                 "value_new_customer.payback_upper",
                 "value_new_customer.discounted_lifetime_closed_form",
+                "value_by_channel.acquisition_cost",
+                "value_by_channel.value_after_acquisition",
+                "value_by_channel.payback_tenure",
+                "value_by_channel.payback_lower",
+                "value_by_channel.payback_upper",
             ),
         ),
         info(
