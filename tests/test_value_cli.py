@@ -57,3 +57,15 @@ def test_price_change_out_of_range_exit_2(demo_copy: Path, capsys):
                  "--output", str(out)]) == 2
     assert "price change" in capsys.readouterr().err
     assert not out.exists()
+
+
+def test_value_backtest_option_writes_its_table(demo_copy: Path, capsys):
+    out = demo_copy.parent / "out"
+    assert main(["value", "--config", str(demo_copy), "--backtest", "6",
+                 "--output", str(out)]) == 0
+    assert "backtest from 2025-06-30" in capsys.readouterr().out
+    import polars as pl
+
+    bt = pl.read_csv(out / "value_backtest.csv")
+    assert set(bt["units_ahead"].to_list()) == set(range(1, 7))
+    assert {"expected_active", "still_active", "relative_error", "covered"} <= set(bt.columns)
