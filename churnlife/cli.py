@@ -85,6 +85,13 @@ def _parser() -> argparse.ArgumentParser:
         "--price-change", type=float, help="scenario price change, e.g. 0.10 for +10 %%"
     )
     val.add_argument("--output", help="output folder (default: [output] folder)")
+    val.add_argument(
+        "--backtest",
+        type=int,
+        metavar="UNITS",
+        help="also check the base forecast: move the as-of date back UNITS tenure units, "
+        "forecast, and compare with the log (table value_backtest)",
+    )
     _script_options(val)
     models = sub.add_parser(
         "models",
@@ -255,6 +262,18 @@ def _value(args: argparse.Namespace) -> int:
         )
     for line in value_lines(analysis.value, config.tenure_unit, full=True):
         _say(line)
+    if args.backtest:
+        from churnlife.value.backtest import forecast_backtest
+
+        if not 1 <= args.backtest <= 60:
+            raise UserError("--backtest takes 1 to 60 tenure units, e.g. --backtest 12.")
+        bt = forecast_backtest(config, args.backtest)
+        analysis.tables["value_backtest"] = bt
+        worst = float(bt.filter(bt["cohort"] == "all cohorts")["relative_error"].abs().max() or 0)
+        _say(
+            f"  backtest from {bt['backtest_as_of'][0]}: largest error of the forecast base "
+            f"{worst:.1%}; interval covered {bt['covered'].mean():.0%} of cohort-steps"
+        )
     folder = write_outputs(analysis, Path(args.output).resolve() if args.output else None)
     _say(f"  wrote {folder}/report.html ({time.perf_counter() - t0:.1f} s)")
     if args.json:

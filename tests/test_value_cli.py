@@ -34,14 +34,16 @@ def test_value_command_prints_and_writes(demo_copy: Path, capsys):
 @pytest.mark.parametrize(
     "extra, words",
     [
-        ("[value]\ndiscount_rte = 0.1\n", "discount_rate"),
-        ("[value]\ntiming = \"middle\"\n", "timing"),
-        ("[value]\nmargin_rate = 1.5\n", "margin_rate"),
-        ("[value]\nmodel = \"weibul\"\n", "weibull"),
+        ("discount_rte = 0.1\n", "discount_rate"),
+        ('timing = "middle"\n', "timing"),
+        ("horizon_years = -1\n", "horizon_years"),
+        ('model = "weibul"\n', "weibull"),
     ],
 )
 def test_bad_value_settings_exit_2(demo_copy: Path, capsys, extra: str, words: str):
-    demo_copy.write_text(demo_copy.read_text() + "\n" + extra)
+    text = demo_copy.read_text()
+    assert "[value]\n" in text
+    demo_copy.write_text(text.replace("[value]\n", "[value]\n" + extra, 1))
     out = demo_copy.parent / "out"
     assert main(["value", "--config", str(demo_copy), "--output", str(out)]) == 2
     err = capsys.readouterr().err
@@ -55,3 +57,15 @@ def test_price_change_out_of_range_exit_2(demo_copy: Path, capsys):
                  "--output", str(out)]) == 2
     assert "price change" in capsys.readouterr().err
     assert not out.exists()
+
+
+def test_value_backtest_option_writes_its_table(demo_copy: Path, capsys):
+    out = demo_copy.parent / "out"
+    assert main(["value", "--config", str(demo_copy), "--backtest", "6",
+                 "--output", str(out)]) == 0
+    assert "backtest from 2025-06-30" in capsys.readouterr().out
+    import polars as pl
+
+    bt = pl.read_csv(out / "value_backtest.csv")
+    assert set(bt["units_ahead"].to_list()) == set(range(1, 7))
+    assert {"expected_active", "still_active", "relative_error", "covered"} <= set(bt.columns)

@@ -10,6 +10,7 @@ truth (demo/generate.py writes the true hazards to truth.json) and against the l
 
 from __future__ import annotations
 
+import dataclasses
 import json
 
 import numpy as np
@@ -21,6 +22,7 @@ from churnlife.km import kaplan_meier
 from churnlife.models.suite import fit_models
 from churnlife.value.backtest import BACKTEST_MODELS, forecast_backtest
 from churnlife.value.scenario import _scaled_rows
+from churnlife.value.settings import ValueSettings
 from churnlife.value.valuation import value_customers
 
 
@@ -31,9 +33,11 @@ def truth(demo_folder):
 
 @pytest.fixture(scope="module")
 def valuation(demo_config, demo_extract):
-    models = fit_models(demo_extract.counts, confidence=demo_config.confidence)
-    km = kaplan_meier(demo_extract.counts, demo_config.confidence).to_polars()
-    return value_customers(demo_extract, demo_config, models, km, seed=11)
+    """Valued in revenue (margin 1, no cost to serve), so the truth needs only the price."""
+    config = dataclasses.replace(demo_config, value=ValueSettings())
+    models = fit_models(demo_extract.counts, confidence=config.confidence)
+    km = kaplan_meier(demo_extract.counts, config.confidence).to_polars()
+    return value_customers(demo_extract, config, models, km, seed=11)
 
 
 def _true_new_customer_value(truth: dict, plan: str, annual_rate: float, years: float) -> float:

@@ -20,6 +20,19 @@ from churnlife.value.valuation import CAUTIONS, Valuation
 MONEY = ",.0f"
 
 
+def _fmt(x, spec: str) -> str:
+    return "—" if x is None or x != x else format(x, spec)
+
+
+def _span(frame: pl.DataFrame, est: str, lo: str, hi: str, spec: str = MONEY) -> list[str]:
+    """'estimate (lower to upper)' per row, for the report's compact tables (the CSV beside
+    keeps the numbers in their own columns)."""
+    return [
+        f"{_fmt(e, spec)} ({_fmt(a, spec)} to {_fmt(b, spec)})"
+        for e, a, b in zip(frame[est], frame[lo], frame[hi], strict=True)  # one row per cohort
+    ]
+
+
 def _pct(confidence: float) -> int:
     return round(confidence * 100)
 
@@ -47,33 +60,74 @@ def value_section(v: Valuation, unit: str) -> Section:
     )
     blocks.append(
         Table(
-            new.select(
-                "cohort", "model", "value", "lower", "upper", "discounted_lifetime",
-                "mean_lifetime", "median_lifetime", "payback_tenure",
-                "share_of_value_beyond_data", "truncation_bound",
+            pl.DataFrame(
+                {
+                    "cohort": new["cohort"],
+                    "tail model": new["model"],
+                    f"value ({pct}% interval)": _span(new, "value", "lower", "upper"),
+                    f"discounted lifetime ({unit})": _span(
+                        new, "discounted_lifetime", "discounted_lifetime_lower",
+                        "discounted_lifetime_upper", ".1f",
+                    ),
+                    f"mean lifetime ({unit})": _span(
+                        new, "mean_lifetime", "mean_lifetime_lower", "mean_lifetime_upper", ".1f"
+                    ),
+                    f"median lifetime ({unit})": _span(
+                        new, "median_lifetime", "median_lifetime_lower", "median_lifetime_upper",
+                        ".0f",
+                    ),
+                    "value from beyond the data": new["share_of_value_beyond_data"],
+                }
             ),
-            caption=f"Per new customer: value ({pct}% interval), discounted expected lifetime "
-            f"and mean and median lifetime ({unit}), payback tenure against the acquisition "
-            "cost (when given), the share of the value that comes from tenures no customer has "
-            "reached yet (the part resting on the model alone), and a bound on what stopping "
-            "the sums at the horizon leaves out.",
+            caption=f"Per new customer: discounted value, discounted expected lifetime and mean "
+            f"and median lifetime ({unit}), and the share of the value that comes from tenures no "
+            "customer has reached yet (the part resting on the model alone). Payback, the "
+            "truncation bound and more in the CSV.",
             csv_name="value_new_customer.csv",
-            formats={
-                "value": MONEY, "lower": MONEY, "upper": MONEY, "discounted_lifetime": ".1f",
-                "mean_lifetime": ".1f", "median_lifetime": ".0f", "payback_tenure": ".0f",
-                "share_of_value_beyond_data": ".0%", "truncation_bound": ".3g",
-            },
+            formats={"value from beyond the data": ".0%"},
         )
     )
+    channels = t.get("value_by_channel")
+    if channels is not None and channels.height:
+        blocks.append(
+            Table(
+                pl.DataFrame(
+                    {
+                        "cohort": channels["cohort"],
+                        "channel": channels["channel"],
+                        "customers": channels["customers"],
+                        f"value ({pct}% interval)": _span(channels, "value", "lower", "upper"),
+                        "acquisition cost": channels["acquisition_cost"],
+                        "value after acquisition": channels["value_after_acquisition"],
+                        f"payback ({unit})": _span(
+                            channels, "payback_tenure", "payback_lower", "payback_upper", ".0f"
+                        ),
+                    }
+                ),
+                caption="Per new customer by cohort and acquisition channel: each cell's own "
+                "curve (its cohort's model refitted) and revenue; payback tenure against the "
+                f"channel's acquisition cost ({unit}; 0 = the first payment covers it). "
+                "Channels differ in who they bring, not only in what they cost.",
+                csv_name="value_by_channel.csv",
+                formats={"acquisition cost": MONEY, "value after acquisition": MONEY},
+            )
+        )
+
     base = t["value_active_base"]
     blocks.append(
         Table(
-            base,
-            caption="Today's active customers and what they are expected to bring from now on "
-            f"({pct}% interval), each valued on their cohort and current tenure.",
+            pl.DataFrame(
+                {
+                    "cohort": base["cohort"],
+                    "active customers": base["active_customers"],
+                    f"value from now on ({pct}% interval)": _span(base, "value", "lower", "upper"),
+                    "per customer": base["value_per_customer"],
+                }
+            ),
+            caption="Today's active customers and what they are expected to bring from now on, "
+            "each valued on their cohort and current tenure.",
             csv_name="value_active_base.csv",
-            formats={"value": MONEY, "lower": MONEY, "upper": MONEY,
-                     "value_per_customer": MONEY},
+            formats={"per customer": MONEY},
         )
     )
     by_tenure = t["value_by_tenure"]
@@ -137,18 +191,31 @@ def _price_blocks(v: Valuation, unit: str) -> list:
         else "loses" if head["change_in_base_upper"] < 0
         else "may gain or lose (the interval includes no change)"
     )
+    resp = t["price_response"]
     blocks: list = [
         Table(
-            t["price_response"],
+            pl.DataFrame(
+                {
+                    "cohort": resp["cohort"],
+                    "churn": resp["churn"],
+                    f"hazard ratio ({pct}% interval)": _span(
+                        resp, "hazard_ratio", "lower", "upper", ".3f"
+                    ),
+                    "mean price rise seen": resp["mean_price_rise"],
+                    "elasticity": _span(
+                        resp, "elasticity", "elasticity_lower", "elasticity_upper", ".2f"
+                    ),
+                    "spells with a rise": resp["spells_with_rise"],
+                    "estimated from": resp["estimated_from"],
+                }
+            ),
             caption="Churn hazard after a customer's first price increase relative to before, "
-            f"at the same tenure ({pct}% interval), and the elasticity it implies per unit of "
-            "log price. The scenario uses the all-causes response; voluntary churn alone is "
-            "shown for comparison. A cohort that never had an increase borrows the pooled "
-            "estimate (estimated_from).",
+            "at the same tenure, and the elasticity it implies per unit of log price (about "
+            "per 1 % of price). The scenario uses the all-causes response; voluntary churn alone "
+            "is shown for comparison. A cohort that never had an increase borrows the pooled "
+            "estimate.",
             csv_name="price_response.csv",
-            formats={"hazard_ratio": ".3f", "lower": ".3f", "upper": ".3f",
-                     "mean_price_rise": "+.1%", "elasticity": ".2f", "elasticity_lower": ".2f",
-                     "elasticity_upper": ".2f"},
+            formats={"mean price rise seen": "+.1%"},
         ),
         Text(
             f"<p><strong>Scenario: price {change:+.0%}.</strong> The active base "
@@ -158,15 +225,32 @@ def _price_blocks(v: Valuation, unit: str) -> list:
             f"factor of {head['break_even_hazard_ratio']:.3f}.</p>"
         ),
         Table(
-            scen,
-            caption="Value before and after the price change, per new customer and for the "
-            "active base, with the churn hazard ratio applied and the break-even ratio (the "
-            "hazard ratio at which the base's value is unchanged).",
+            pl.DataFrame(
+                {
+                    "cohort": scen["cohort"],
+                    "churn hazard ratio": scen["hazard_ratio"],
+                    "per new customer: before": scen["value_new_before"],
+                    "after": scen["value_new_after"],
+                    f"change ({pct}% interval)": _span(
+                        scen, "change_per_new_customer", "change_per_new_lower",
+                        "change_per_new_upper",
+                    ),
+                    "active base: before": scen["base_value_before"],
+                    "after ": scen["base_value_after"],
+                    f"change ({pct}% interval) ": _span(
+                        scen, "change_in_base_value", "change_in_base_lower",
+                        "change_in_base_upper",
+                    ),
+                    "break-even hazard ratio": scen["break_even_hazard_ratio"],
+                }
+            ),
+            caption=f"Price {change:+.0%}: value before and after, per new customer and for the "
+            "active base, with the estimated churn response applied; the break-even ratio is the "
+            "hazard ratio at which the base's value would be unchanged.",
             csv_name="price_scenario.csv",
             formats={
-                c: (".3f" if "ratio" in c else "+.0%" if c == "price_change" else MONEY)
-                for c in scen.columns
-                if c != "cohort"
+                "churn hazard ratio": ".3f", "per new customer: before": MONEY, "after": MONEY,
+                "active base: before": MONEY, "after ": MONEY, "break-even hazard ratio": ".3f",
             },
         ),
         Chart(
@@ -194,6 +278,11 @@ def value_notes(v: Valuation) -> list[Note]:
                 "value_new_customer.payback_lower",
                 "value_new_customer.payback_upper",
                 "value_new_customer.discounted_lifetime_closed_form",
+                "value_by_channel.acquisition_cost",
+                "value_by_channel.value_after_acquisition",
+                "value_by_channel.payback_tenure",
+                "value_by_channel.payback_lower",
+                "value_by_channel.payback_upper",
             ),
         ),
         info(

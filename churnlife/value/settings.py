@@ -79,10 +79,9 @@ class ValueSettings:
         return {
             "discount rate (annual)": self.discount_rate,
             "margin rate": self.margin_rate,
-            "cost to serve per tenure unit": self.cost_to_serve,
+            "cost to serve per tenure unit": _money_words(self.cost_to_serve),
             "payment timing": f"at the {self.timing} of each period",
-            "acquisition cost": self.acquisition_cost if self.acquisition_cost is not None
-            else "(not given)",
+            "acquisition cost": _money_words(self.acquisition_cost),
             "model": self.model,
             "curve": "Kaplan–Meier over observed tenures, then the model"
             if self.curve == "km+tail" else "the model throughout",
@@ -90,6 +89,14 @@ class ValueSettings:
             "simulation draws": self.draws,
             "revenue trend past observed tenure (per year)": self.revenue_trend,
         }
+
+
+def _money_words(value: float | dict[str, float] | None) -> str:
+    if value is None:
+        return "(not given)"
+    if isinstance(value, dict):
+        return ", ".join(f"{k} {v:g}" for k, v in value.items())
+    return f"{value:g}"
 
 
 def _per_cohort(value: float | dict[str, float], cohort: str, default: float) -> float:

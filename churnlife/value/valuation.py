@@ -42,6 +42,7 @@ from churnlife.value.worth import (
     interval,
     mean_remaining_lifetime,
     median_remaining_lifetime,
+    model_mean_residual_life,
     new_customer_value,
     payback_tenure,
     per_unit_rate,
@@ -237,6 +238,8 @@ def value_customers(
         "revenue_by_tenure": revenue,
         "revenue_retention": revenue_retention(revenue, km_table),
     }
+    if config.columns.get("channel") and "channel" not in extract.cohort_columns:
+        v.tables["value_by_channel"] = _channel_table(v, extract, config, rng)
     if responses:
         v.tables["price_response"] = response_table
         v.tables["price_scenario"], v.tables["price_sweep"] = _scenarios(v, change, rng)
@@ -335,6 +338,9 @@ def _by_tenure_table(v: Valuation) -> pl.DataFrame:
                     "tenure": taus.astype(np.int64),
                     "active_customers": c.active[taus].astype(np.int64),
                     "mean_remaining": mean_remaining_lifetime(s)[0, taus],
+                    "mean_remaining_model": model_mean_residual_life(
+                        c.fit.survival, taus, c.curve.horizon
+                    ),
                     "mean_remaining_lower": lo["mrl"][0],
                     "mean_remaining_upper": lo["mrl"][1],
                     "median_remaining": median_remaining_lifetime(s, taus)[0],
@@ -412,3 +418,65 @@ def _scenarios(
         table.with_columns(pl.col(pl.Float64).fill_nan(None)),
         sweep.with_columns(pl.col(pl.Float64).fill_nan(None)),
     )
+
+
+def _channel_table(
+    v: Valuation, extract: Extract, config: Config, rng: np.random.Generator
+) -> pl.DataFrame:
+    """Value of a new customer per cohort × acquisition channel: each cell's own Kaplan–Meier
+    and revenue path, with its cohort's chosen model family refitted to the cell; payback
+    against the channel's acquisition cost when given."""
+    from churnlife.models.base import cohorts_of, grouped_from_counts
+    from churnlife.models.suite import model_fitter
+
+    keys = (*extract.cohort_columns, "channel")
+    counts = extract.counts_by(keys)
+    revenue = revenue_counts(extract, config, keys)
+    family = {c.cohort: c for c in v.cohorts}
+    st, rows = v.settings, []
+    for cell in cohorts_of(counts):  # cohorts × channels, a few dozen
+        part = counts.filter(pl.col("cohort") == cell)
+        parent = " · ".join(str(part[k][0]) for k in extract.cohort_columns) or "all customers"
+        if parent not in family:
+            continue
+        base = family[parent]
+        data = grouped_from_counts(part)
+        try:
+            fit = model_fitter(base.fit.name, config.confidence)(data)
+            curve = life_curve(data, fit, base.curve.horizon, st.draws, rng, st.curve)
+        except (UserError, np.linalg.LinAlgError, ValueError):
+            continue  # too few churns in the cell for its cohort's model
+        path = revenue_path(revenue, cell, base.curve.horizon, 0.0)
+        cash = st.margin_rate * path.per_customer - st.cost_for(parent)
+        value = float(new_customer_value(curve.survival, cash, base.rate, st.timing)[0])
+        draws = new_customer_value(curve.draws, cash, base.rate, st.timing)
+        (lo,), (hi,) = interval(draws[:, None], v.confidence)
+        channel = str(part["channel"][0])
+        acq = st.acquisition_for(cell, channel, parent)
+        pay = pay_lo = pay_hi = float("nan")
+        if acq is not None:
+            pay = float(payback_tenure(curve.survival, cash, base.rate, acq, st.timing)[0])
+            pb = payback_tenure(curve.draws, cash, base.rate, acq, st.timing)
+            (pay_lo,), (pay_hi,) = interval(
+                np.where(np.isnan(pb), np.inf, pb)[:, None], v.confidence
+            )
+        rows.append(
+            {
+                "cohort": parent,
+                "channel": channel,
+                "customers": data.n_subjects,
+                "model": fit.name,
+                "value": value,
+                "lower": float(lo),
+                "upper": float(hi),
+                "acquisition_cost": acq if acq is not None else float("nan"),
+                "value_after_acquisition": value - acq if acq is not None else float("nan"),
+                "payback_tenure": pay,
+                "payback_lower": float(pay_lo),
+                "payback_upper": float(pay_hi),
+            }
+        )
+    if not rows:
+        return pl.DataFrame()
+    out = pl.DataFrame(rows)
+    return out.with_columns(pl.col(pl.Float64).replace([np.inf], [None]).fill_nan(None))
