@@ -144,7 +144,7 @@ def analyse(
     if models:
         bands = "bootstrap bands" if band == "bootstrap" else "bands"
         with numeric_warnings(fitting), step(f"fitting hazard models and {bands}"):
-            fitted, model_tables, section = model_results(
+            fitted, model_tables, model_sections = model_results(
                 extract.counts, config.tenure_unit, config.confidence, config.retention_at,
                 models, horizon, band,
             )
@@ -153,8 +153,8 @@ def analyse(
         analysis.tables.update(model_tables)
         if price is not None:
             analysis.tables["model_price_effect"] = price[0]
-            section.blocks.insert(len(section.blocks) - 1, price[1])
-        results.append(section)
+            model_sections[0].blocks.append(price[1])
+        results += model_sections
     valuing, not_valued = NumericWarnings(), None
     if models and value and analysis.models is not None and analysis.models.fits:
         from churnlife.value.valuation import NothingToValue, value_customers

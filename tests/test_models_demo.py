@@ -184,5 +184,6 @@ def test_cli_models_and_run(demo_folder, tmp_path, capsys):
     for name in ("model_ranking", "model_parameters", "model_extrapolation", "model_backtest"):
         assert (target / f"{name}.csv").is_file()
     html = (target / "report.html").read_text()
-    assert "Hazard models and extrapolation" in html and "extrapolated" in html
+    assert "Hazard models and how well they fit" in html and "extrapolated" in html
+    assert "Past the data: extrapolation" in html
     assert (target / "model_extrapolation.svg").is_file()

@@ -149,7 +149,7 @@ def model_headlines(models: Any, bands: pl.DataFrame, unit: str) -> list[Headlin
                 cohort=str(cohort),
                 interval=f"{pct}% band",
                 caution=f"{cohort}: observed only to {seen} {unit}{spread}.",
-                section="models",
+                section="extrapolation",
             )
         )
     return out

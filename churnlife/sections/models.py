@@ -34,8 +34,9 @@ def model_results(
     models: Sequence[str] = DEFAULT_MODELS,
     horizon: int | None = None,
     band: str = "delta",
-) -> tuple[HazardModels, dict[str, pl.DataFrame], Section]:
-    """Fit the models, build their tables (written beside the report) and the report section."""
+) -> tuple[HazardModels, dict[str, pl.DataFrame], list[Section]]:
+    """Fit the models, build their tables (written beside the report) and the report sections:
+    the models and their fit checks, then the extrapolation (when any model could be fitted)."""
     fitted = fit_models(counts, models, confidence)
     ranking = fitted.ranking()
     tables: dict[str, pl.DataFrame] = {"model_ranking": ranking}
@@ -57,9 +58,9 @@ def model_results(
         )
     else:
         observed = bands = backtests = pl.DataFrame()
-    section = models_section(fitted, ranking, observed, bands, backtests, unit, retention_at)
-    section.headlines = model_headlines(fitted, bands, unit)
-    return fitted, tables, section
+    sections = models_section(fitted, ranking, observed, bands, backtests, unit, retention_at)
+    sections[-1].headlines = model_headlines(fitted, bands, unit)
+    return fitted, tables, sections
 
 
 def _top_models(ranking: pl.DataFrame, n: int = 3) -> list[str]:
@@ -79,13 +80,14 @@ def models_section(
     backtests: pl.DataFrame,
     unit: str,
     retention_at: Sequence[int],
-) -> Section:
+) -> list[Section]:
     pct = round(fitted.confidence * 100)
-    blocks: list = []
+    blocks: list = []  # the models and how well they fit
+    beyond: list = []  # what they say past the data
     if not fitted.fits:
         reasons = "".join(f"<li>{esc(c)} · {esc(m)}: {esc(r)}</li>" for c, m, r in fitted.failures)
         blocks.append(Text(f"<p>No model could be fitted.</p><ul>{reasons}</ul>"))
-        return Section("models", "Hazard models and extrapolation", blocks)
+        return [Section("models", "Hazard models and how well they fit", blocks)]
     shown = ranking.drop("note").filter(pl.col("rank") <= 6)
     blocks.append(
         Table(
@@ -123,7 +125,7 @@ def models_section(
             )
         )
     if bands.height:
-        blocks.append(
+        beyond.append(
             Chart(
                 extrapolation_chart(bands, unit, fitted.confidence),
                 "model_extrapolation",
@@ -147,7 +149,7 @@ def models_section(
             .pivot(on="tenure", index=["cohort", "model"], values="value")
         )
         wide = wide.rename({c: f"{c} {unit}" for c in wide.columns if c not in ("cohort", "model")})
-        blocks.append(
+        beyond.append(
             Table(
                 wide,
                 caption=f"Model retention in % with {pct}% interval. * = past the longest "
@@ -185,14 +187,21 @@ def models_section(
         )
         blocks.append(Text(f"<p>Not fitted:</p><ul>{items}</ul>"))
     body = "".join(f'<div class="caution">{esc(t)}</div>' for t in CAUTIONS)
-    blocks.append(Text(body))
-    return Section(
+    fits = Section(
         "models",
-        "Hazard models and extrapolation",
+        "Hazard models and how well they fit",
         blocks,
-        lead="Smooth models of churn by tenure, how well each matches the observed curves, and "
-        "what they imply past the longest tenure observed.",
+        lead="Smooth models of churn by tenure, and how well each matches the observed curves "
+        "and predicts tenures it was not fitted on.",
     )
+    past = Section(
+        "extrapolation",
+        "Past the data: extrapolation",
+        [*beyond, Text(body)],
+        lead="What the best-fitting model of each cohort implies past the longest tenure "
+        "observed: a scenario resting on the model's form.",
+    )
+    return [fits, past]
 
 
 def price_effect_block(extract, config) -> tuple[pl.DataFrame, Table] | None:
