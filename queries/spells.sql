@@ -48,29 +48,50 @@ ev AS (
       AND customer_id IS NOT NULL
 ),
 
--- For every event, the first later payment that went through (a recovery or a renewal).
-ev_next_ok AS (
-    SELECT
-        *,
-        MIN(CASE WHEN role IN ('payment_recovered', 'renewal') THEN event_date END) OVER (
-            PARTITION BY customer_id ORDER BY event_time
-            ROWS BETWEEN 1 FOLLOWING AND UNBOUNDED FOLLOWING
-        ) AS next_ok_date
-    FROM ev
-    WHERE role IS NOT NULL
+-- Events with a role (codes listed under ignore have none).
+ev_roles AS (
+    SELECT * FROM ev WHERE role IS NOT NULL
+),
+
+-- Failed payments not recovered within the grace period: no later payment went through (a
+-- recovery or a renewal) by the failure's date + $grace_days. A join on the customer, not a
+-- window over every event of the log: failures are few, and only they need the look-ahead.
+unrecovered AS (
+    SELECT f.customer_id, f.event_time, f.event_date, f.plan, f.price
+    FROM ev_roles AS f
+    WHERE f.role = 'payment_failed'
+      AND f.event_date + $grace_days <= $as_of
+      AND NOT EXISTS (
+          SELECT 1
+          FROM ev_roles AS ok
+          WHERE ok.customer_id = f.customer_id
+            AND ok.role IN ('payment_recovered', 'renewal')
+            AND ok.event_time > f.event_time
+            AND ok.event_date <= f.event_date + $grace_days
+      )
 ),
 
 -- Customers who began before the log and are still active when it starts: their first event in the
--- log is not a start. They enter late, at their known signup date.
+-- log is not a start. They enter late, at their known signup date. The first event is found by
+-- its time (an aggregate, not a sort of every event); when several events share that first
+-- instant, a start among them counts as the first event, else the smallest plan and price.
+first_time AS (
+    SELECT customer_id, MIN(event_time) AS first_time
+    FROM ev_roles
+    GROUP BY customer_id
+),
+
 first_in_log AS (
-    SELECT customer_id, role, plan, price
-    FROM (
-        SELECT
-            customer_id, role, plan, price,
-            ROW_NUMBER() OVER (PARTITION BY customer_id ORDER BY event_time) AS rn
-        FROM ev_next_ok
-    ) AS t
-    WHERE rn = 1
+    SELECT
+        e.customer_id,
+        CASE WHEN MAX(CASE WHEN e.role = 'start' THEN 1 ELSE 0 END) = 1
+             THEN 'start' ELSE 'other' END AS role,
+        MIN(e.plan) AS plan,
+        MIN(e.price) AS price
+    FROM ev_roles AS e
+    JOIN first_time AS t
+      ON t.customer_id = e.customer_id AND t.first_time = e.event_time
+    GROUP BY e.customer_id
 ),
 
 -- Spell boundary marks: S = a start, T = an end (a cancel, or a failed payment that was not
@@ -79,18 +100,15 @@ marks AS (
     SELECT customer_id, event_time, event_date AS mark_date, 'S' AS mark, plan, price,
            CAST(NULL AS VARCHAR) AS cause, CAST(NULL AS VARCHAR) AS cancel_reason,
            FALSE AS late_entry
-    FROM ev_next_ok WHERE role = 'start'
+    FROM ev_roles WHERE role = 'start'
     UNION ALL
     SELECT customer_id, event_time, event_date, 'T', plan, price,
            'voluntary', cancel_reason, FALSE
-    FROM ev_next_ok WHERE role = 'cancel'
+    FROM ev_roles WHERE role = 'cancel'
     UNION ALL
     SELECT customer_id, event_time, event_date, 'T', plan, price,
            'involuntary', CAST(NULL AS VARCHAR), FALSE
-    FROM ev_next_ok
-    WHERE role = 'payment_failed'
-      AND (next_ok_date IS NULL OR next_ok_date > event_date + $grace_days)
-      AND event_date + $grace_days <= $as_of
+    FROM unrecovered
     UNION ALL
     SELECT f.customer_id, CAST(c.signup_date AS TIMESTAMP), c.signup_date, 'S', f.plan, f.price,
            CAST(NULL AS VARCHAR), CAST(NULL AS VARCHAR), TRUE
