@@ -160,7 +160,7 @@ def _period_months_expr(config: Config) -> str:
 
 def _event_time_via(config: Config, source: Source) -> str:
     """TIMESTAMP for a column of plain timestamps or dates (nothing to convert), TIMESTAMPTZ for
-    zone-aware timestamps and text (read in UTC): the conversion costs a time-zone lookup per row."""
+    zone-aware timestamps and text (read in UTC): that conversion costs a zone lookup per row."""
     from churnlife.quality import column_types
 
     name = config.columns["event_time"]
