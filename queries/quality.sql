@@ -37,7 +37,9 @@ ev AS (
             WHEN list_contains($price_change_codes, event_kind)      THEN 'price_change'
             WHEN list_contains($plan_change_codes, event_kind)       THEN 'plan_change'
         END AS role
-    FROM raw_events
+    -- its own scan of the log, not the raw_events CTE (which customer_info may read): a CTE
+    -- read by several queries is materialised, a copy of every event
+    FROM ({events_normalised}) AS raw
     WHERE event_time >= CAST($log_start AS TIMESTAMP)
       AND event_time < CAST($as_of AS TIMESTAMP) + INTERVAL 1 DAY
       AND customer_id IS NOT NULL

@@ -42,7 +42,9 @@ ev AS (
             WHEN list_contains($price_change_codes, event_kind)      THEN 'price_change'
             WHEN list_contains($plan_change_codes, event_kind)       THEN 'plan_change'
         END AS role
-    FROM raw_events
+    -- its own scan of the log, not the raw_events CTE (which customer_info may read): a CTE
+    -- read by several queries is materialised, a copy of every event
+    FROM ({events_normalised}) AS raw
     WHERE event_time >= CAST($log_start AS TIMESTAMP)
       AND event_time < CAST($as_of AS TIMESTAMP) + INTERVAL 1 DAY
       AND customer_id IS NOT NULL
@@ -142,7 +144,9 @@ pieces AS (
             late_entry,
             LEAD(mark_date)     OVER w AS end_date,
             LEAD(cause)         OVER w AS cause,
-            LEAD(cancel_reason) OVER w AS cancel_reason
+            LEAD(cancel_reason) OVER w AS cancel_reason,
+            -- kept marks alternate S T S T, so the mark before a start is the previous end
+            LAG(mark_date)      OVER w AS prev_end
         FROM marks_kept
         WINDOW w AS (PARTITION BY customer_id ORDER BY event_time, mark)
     ) AS t
@@ -156,10 +160,7 @@ pieces_numbered AS (
         SUM(CASE WHEN prev_end IS NULL OR start_date - prev_end >= $gap_days THEN 1 ELSE 0 END)
             OVER (PARTITION BY customer_id ORDER BY start_time ROWS UNBOUNDED PRECEDING)
             AS spell_number
-    FROM (
-        SELECT *, LAG(end_date) OVER (PARTITION BY customer_id ORDER BY start_time) AS prev_end
-        FROM pieces
-    ) AS t
+    FROM pieces
 ),
 
 spell_rows AS (
@@ -170,14 +171,16 @@ spell_rows AS (
         FIRST_VALUE(plan)       OVER w_first AS plan,
         FIRST_VALUE(price)      OVER w_first AS price,
         FIRST_VALUE(late_entry) OVER w_first AS late_entry,
-        FIRST_VALUE(end_date)   OVER w_last  AS end_date,
-        FIRST_VALUE(cause)      OVER w_last  AS cause,
-        FIRST_VALUE(cancel_reason) OVER w_last AS cancel_reason,
+        LAST_VALUE(end_date)    OVER w_all   AS end_date,
+        LAST_VALUE(cause)       OVER w_all   AS cause,
+        LAST_VALUE(cancel_reason) OVER w_all AS cancel_reason,
         ROW_NUMBER() OVER w_first AS rn
     FROM pieces_numbered
+    -- one sort for both: the same partition and order, the second over the whole spell
     WINDOW
         w_first AS (PARTITION BY customer_id, spell_number ORDER BY start_time),
-        w_last  AS (PARTITION BY customer_id, spell_number ORDER BY start_time DESC)
+        w_all   AS (PARTITION BY customer_id, spell_number ORDER BY start_time
+                    ROWS BETWEEN UNBOUNDED PRECEDING AND UNBOUNDED FOLLOWING)
 ),
 
 spells AS (
