@@ -66,6 +66,28 @@ def _parser() -> argparse.ArgumentParser:
         if name == "run":
             cmd.add_argument("--output", help="output folder (default: [output] folder)")
             _model_options(cmd)
+    val = sub.add_parser(
+        "value",
+        help="value customers: per new and active customer, the base, a price scenario",
+        description="Fit the hazard models, value new and active customers per cohort with "
+        "intervals ([value] settings), forecast today's base and run a price-change scenario. "
+        "Prints the results and writes the output folder (tables, charts, report.html).",
+        epilog="examples:\n  churnlife value --config churnlife-demo/churnlife.toml\n"
+        "  churnlife value --config my.toml --price-change 0.08 --output out",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    val.add_argument("--config", required=True, help="path of the TOML config")
+    val.add_argument(
+        "--price-change", type=float, help="scenario price change, e.g. 0.10 for +10 %%"
+    )
+    val.add_argument("--output", help="output folder (default: [output] folder)")
+    val.add_argument(
+        "--backtest",
+        type=int,
+        metavar="UNITS",
+        help="also check the base forecast: move the as-of date back UNITS tenure units, "
+        "forecast, and compare with the log (table value_backtest)",
+    )
     models = sub.add_parser(
         "models",
         help="fit the hazard models per cohort and print their ranking; writes nothing",
@@ -187,6 +209,44 @@ def _run(
     for m in analysis.km.medians:
         med = "not reached" if m.median != m.median else f"{m.median:g} {config.tenure_unit}"
         _say(f"  median tenure, {m.cohort}: {med}")
+    if analysis.value is not None:
+        from churnlife.sections.value import value_lines
+
+        for line in value_lines(analysis.value, config.tenure_unit):
+            _say(line)
+    _say(f"  wrote {folder}/report.html ({time.perf_counter() - t0:.1f} s)")
+    return 0
+
+
+def _value(args: argparse.Namespace) -> int:
+    from churnlife.config import load_config
+    from churnlife.pipeline import analyse, write_outputs
+    from churnlife.sections.value import value_lines
+
+    t0 = time.perf_counter()
+    config = load_config(args.config)
+    _say(f"churnlife: reading {config.source.events} ({config.source.kind}) …")
+    analysis = analyse(config, price_change=args.price_change)
+    if analysis.value is None:
+        raise UserError(
+            "no cohort could be valued: no hazard model could be fitted. Check the counts "
+            "(churnlife models --config ...) or group small cohorts together."
+        )
+    for line in value_lines(analysis.value, config.tenure_unit, full=True):
+        _say(line)
+    if args.backtest:
+        from churnlife.value.backtest import forecast_backtest
+
+        if not 1 <= args.backtest <= 60:
+            raise UserError("--backtest takes 1 to 60 tenure units, e.g. --backtest 12.")
+        bt = forecast_backtest(config, args.backtest)
+        analysis.tables["value_backtest"] = bt
+        worst = float(bt.filter(bt["cohort"] == "all cohorts")["relative_error"].abs().max() or 0)
+        _say(
+            f"  backtest from {bt['backtest_as_of'][0]}: largest error of the forecast base "
+            f"{worst:.1%}; interval covered {bt['covered'].mean():.0%} of cohort-steps"
+        )
+    folder = write_outputs(analysis, Path(args.output).resolve() if args.output else None)
     _say(f"  wrote {folder}/report.html ({time.perf_counter() - t0:.1f} s)")
     return 0
 
@@ -262,6 +322,8 @@ def main(argv: list[str] | None = None) -> int:
             return _check(args.config)
         if args.command == "compare":
             return _compare(args)
+        if args.command == "value":
+            return _value(args)
         _parser().print_help()
         return 2
     except UserError as err:

@@ -15,6 +15,7 @@ from pathlib import Path
 from typing import Any
 
 from churnlife.errors import UserError, did_you_mean
+from churnlife.value.settings import VALUE_KEYS, ValueSettings, parse_value_settings
 
 TENURE_UNITS = ("days", "weeks", "months", "periods")
 COHORT_KEYS = ("signup_month", "signup_quarter", "signup_year", "plan", "channel", "price_band")
@@ -71,6 +72,7 @@ class Config:
     output_folder: Path
     config_path: Path | None = None
     incomplete_rows: str = "stop"  # rows without id, time or kind: "stop" the run, or "drop" them
+    value: ValueSettings = field(default_factory=ValueSettings)  # [value]: how money is counted
 
     def summary(self) -> dict[str, Any]:
         """The run's parameters as shown in the report (no credentials, no file contents)."""
@@ -100,6 +102,7 @@ _SCHEMA: dict[str, tuple[str, ...]] = {
     "cohorts": ("by", "price_bands"),
     "report": ("retention_at", "confidence", "interval"),
     "output": ("folder",),
+    "value": VALUE_KEYS,
 }
 
 
@@ -399,4 +402,5 @@ def parse_config(raw: dict[str, Any], base: Path, config_path: Path | None = Non
         output_folder=(base / folder).resolve(),
         config_path=config_path,
         incomplete_rows=incomplete,
+        value=parse_value_settings(raw.get("value", {})),
     )

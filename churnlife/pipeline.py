@@ -40,6 +40,7 @@ from churnlife.sections.models import model_results, price_effect_block
 from churnlife.sections.overview import cautions_section, data_section, settings_section
 from churnlife.sections.quality import notes_section, quality_section
 from churnlife.sections.retention import retention_section
+from churnlife.sections.value import value_notes, value_section
 from churnlife.source import open_source
 
 
@@ -55,6 +56,7 @@ class Analysis:
     tables: dict[str, pl.DataFrame] = field(default_factory=dict)
     models: Any = None  # churnlife.models.suite.HazardModels, when models were fitted
     notes: list[Note] = field(default_factory=list)  # warnings for the reader (churnlife.notes)
+    value: Any = None  # churnlife.value.valuation.Valuation, when customers were valued
 
     @property
     def counts(self) -> pl.DataFrame:
@@ -68,6 +70,7 @@ class Analysis:
             "settings": self.config.summary(),
             "data": {k: _plain(v) for k, v in self.extract.summary.items()},
             "median_tenure": {k: (None if v != v else v) for k, v in medians.items()},
+            "value": json_safe(self.value.headline()) if self.value is not None else None,
             "notes": [n.as_dict() for n in self.notes],
         }
 
@@ -86,6 +89,8 @@ def analyse(
     horizon: int | None = None,
     band: str = "delta",
     compare: dict[str, Any] | None = None,
+    value: bool = True,
+    price_change: float | None = None,
 ) -> Analysis:
     """Run the extract and the estimators for ``config``; nothing is written anywhere.
 
@@ -93,7 +98,8 @@ def analyse(
     for none); ``horizon`` and ``band`` set their extrapolation (default twice the longest
     observed tenure, delta-method bands). ``compare``: options for
     ``churnlife.compare.compare_cohorts`` (by, strata, ties, horizon); without it the config's
-    cohorts are compared when there are two or more."""
+    cohorts are compared when there are two or more. ``value``: value the customers (needs the
+    models; settings in [value]); ``price_change`` overrides [value] price_change."""
     source = open_source(config)
     extract = run_extract(config, source)
     km = kaplan_meier(extract.counts, config.confidence, config.interval)
@@ -139,6 +145,20 @@ def analyse(
             analysis.tables["model_price_effect"] = price[0]
             section.blocks.insert(len(section.blocks) - 1, price[1])
         results.append(section)
+    valuing, not_valued = NumericWarnings(), None
+    if models and value and analysis.models is not None and analysis.models.fits:
+        from churnlife.value.valuation import NothingToValue, value_customers
+
+        with numeric_warnings(valuing):
+            try:
+                analysis.value = value_customers(
+                    extract, config, analysis.models, analysis.tables["km"], price_change
+                )
+            except NothingToValue as why:
+                not_valued = Note("warning", "value", f"Customers were not valued: {why}")
+        if analysis.value is not None:
+            analysis.tables.update(analysis.value.tables)
+            results.append(value_section(analysis.value, config.tenure_unit))
     # Every NaN in a table or chart gets a note (churnlife.notes): known ones first, then a
     # generic warning for anything no note explains.
     notes = km_notes(km, config.tenure_unit) + comparison_notes(comparison)
@@ -154,7 +174,12 @@ def analyse(
     if analysis.models is not None:
         with numeric_warnings(fitting):
             notes += _model_notes(analysis.models)
+    if analysis.value is not None:
+        notes += value_notes(analysis.value)
+    if not_valued is not None:
+        notes.append(not_valued)
     notes += comparing.note("comparing cohorts") + fitting.note("fitting the hazard models")
+    notes += valuing.note("valuing customers")
     specs = {c.name: c.chart.to_dict() for c in charts_in(results)}
     notes = collect(
         notes,

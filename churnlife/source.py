@@ -75,6 +75,8 @@ class DuckDBSource:
         self._con = duckdb.connect(":memory:")
         # Time-zone-aware times are read in UTC, whatever the machine's zone (README.md).
         self._con.execute("SET TimeZone = 'UTC'").fetchall()
+        # DuckDB draws a progress bar on stderr for long queries; churnlife's own output only
+        self._con.execute("SET enable_progress_bar = false").fetchall()
         # the spill folder goes when the source is closed, collected, or at exit
         self._spill = weakref.finalize(self, shutil.rmtree, _memory_settings(self._con), True)
         self._names: dict[str, str] = {}

@@ -16,6 +16,9 @@ ALLOWED = {
     ("churnlife/quality.py", "count_anomalies"): "the columns of one summary row",
     ("churnlife/cli.py", "_models"): "the model ranking, at most 12 rows per cohort",
     ("churnlife/sections/comparison.py", "summary_lines"): "tests, coefficients and cohorts",
+    ("churnlife/sections/value.py", "value_lines"): "one row per cohort",
+    ("churnlife/value/scenario.py", "price_responses"): "one row per cohort",
+    ("churnlife/value/valuation.py", "headline"): "one row per cohort",
 }
 ROW_ITERATORS = {"iter_rows", "rows", "to_dicts", "iterrows", "itertuples", "fetchall"}
 

@@ -329,7 +329,11 @@ def fit_piecewise_price(
     if len(cells) < 2:
         raise UserError(f"cohort {cohort!r} has no spell after a price increase.")
     if cuts is None:
-        cuts = auto_cuts(_pooled(cells))
+        # fine bands (about three tenure units each): with coarse bands, pieces after an
+        # increase sit at later tenures than pieces before it inside one band, and the falling
+        # baseline hazard would be read as a smaller price effect
+        pooled = _pooled(cells)
+        cuts = auto_cuts(pooled, bands=max(6, pooled.max_tenure // 3), min_churns=10)
     edges = np.array([0.0, *sorted(cuts), np.inf])
     nb = edges.size - 1
     d_rows, e_rows, x_rows = [], [], []
