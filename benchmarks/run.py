@@ -307,11 +307,46 @@ def bench_extract(n: int) -> Row:
     )
 
 
+# Which query file a SQL text came from: a name each one alone contains.
+QUERY_MARKS = (
+    ("spells.sql (staged)", "instants_k0"), ("quality.sql", "mark_counts"),
+    ("summary.sql", "all_rows"), ("episodes.sql", "rise_k0"), ("counts.sql", "full_step"),
+    ("incomplete_rows.sql", "n_incomplete"), ("unknown_codes.sql", "n_events"),
+)
+
+
+def _engine_time_by_query() -> dict[str, float]:
+    """Wrap DuckDBSource.query and .stage to add up engine time per query file."""
+    from churnlife import source
+
+    spent: dict[str, float] = {}
+
+    def label(sql: str) -> str:
+        return next((name for name, mark in QUERY_MARKS if mark in sql), "other")
+
+    def wrap(method):
+        def timed_method(self, *args):
+            sql = args[1] if method.__name__ == "stage" else args[0]
+            t0 = time.perf_counter()
+            try:
+                return method(self, *args)
+            finally:
+                key = label(sql)
+                spent[key] = spent.get(key, 0.0) + time.perf_counter() - t0
+        return timed_method
+
+    source.DuckDBSource.query = wrap(source.DuckDBSource.query)
+    source.DuckDBSource.stage = wrap(source.DuckDBSource.stage)
+    return spent
+
+
 def child_pipeline(config_path: str, out: str) -> None:
-    """Run in the child process: the whole pipeline, stage times and own peak RSS as JSON."""
+    """Run in the child process: the whole pipeline, stage times, engine time per query file and
+    own peak RSS as JSON."""
     from churnlife.config import load_config
     from churnlife.pipeline import analyse, write_outputs
 
+    spent = _engine_time_by_query()
     t0 = time.perf_counter()
     analysis = analyse(load_config(config_path))
     t1 = time.perf_counter()
@@ -319,7 +354,8 @@ def child_pipeline(config_path: str, out: str) -> None:
     t2 = time.perf_counter()
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024  # kB on Linux
     stages = {"analyse_s": t1 - t0, "write_s": t2 - t1, "peak_rss": peak,
-              "spells": analysis.extract.summary["n_spells"]}
+              "spells": analysis.extract.summary["n_spells"],
+              "engine_s": dict(sorted(spent.items(), key=lambda kv: -kv[1]))}
     print("PIPELINE " + json.dumps(stages))
 
 
@@ -342,6 +378,8 @@ def bench_pipeline(n: int) -> Row:
     # (RUSAGE_SELF, reported by the child) is the pipeline's peak.
     children_peak = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss * 1024
     peak = stages["peak_rss"]
+    print("pipeline: engine time per query file (s): " + ", ".join(
+        f"{k} {v:.1f}" for k, v in stages["engine_s"].items()), flush=True)
     return Row(
         "pipeline", f"{n:,} customers, {info['events']:,} events", wall, None,
         "< 60 s, < 2 GiB", wall < 60 and peak < 2 * GIB,

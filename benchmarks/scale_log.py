@@ -180,6 +180,7 @@ def ensure(n_customers: int, seed: int = 20261202, jobs: int = 1) -> Path:
     if meta.is_file():
         info = json.loads(meta.read_text("utf-8"))
         if info.get("customers") == n_customers and info.get("seed") == seed:
+            (folder / "churnlife.toml").write_text(config_text(), "utf-8")  # today's demo config
             return folder
     build(folder, n_customers, seed=seed, jobs=jobs)
     return folder
