@@ -218,6 +218,13 @@ def _engine_errors() -> Iterator[None]:
         if "interrupted" in str(err).lower():
             raise KeyboardInterrupt from None
         raise
+    except duckdb.OutOfMemoryException as err:
+        limit = os.environ.get("CHURNLIFE_MEMORY_LIMIT", MEMORY_LIMIT)
+        raise UserError(
+            f"the database ran out of the memory churnlife allows it ({limit}): "
+            f"{_first_line(err)}. Set the environment variable CHURNLIFE_MEMORY_LIMIT higher "
+            "(e.g. CHURNLIFE_MEMORY_LIMIT=4GB), or CHURNLIFE_THREADS=1 to need less at once."
+        ) from None
     except duckdb.ConversionException as err:
         raise UserError(
             f"a column in the log does not hold the type churnlife expects: {_first_line(err)}. "
