@@ -95,9 +95,13 @@ def test_base_value_adds_up_from_the_per_tenure_values(valuation):
     base = valuation.tables["value_active_base"]
     for c in valuation.cohorts:
         part = by_tenure.filter(pl.col("cohort") == c.cohort)
-        total = float((part["active_customers"] * part["value_per_customer"]).sum())
+        # customers with a failed payment in its grace period count with the recovery share
+        total = float((part["expected_active"] * part["value_per_customer"]).sum())
         row = base.filter(pl.col("cohort") == c.cohort).to_dicts()[0]
         assert row["active_customers"] == int(part["active_customers"].sum())
+        assert row["failed_payment_pending"] == int(part["failed_payment_pending"].sum())
+        assert row["active_customers"] - row["failed_payment_pending"] <= row["expected_active"]
+        assert row["expected_active"] <= row["active_customers"]
         assert row["value"] == pytest.approx(total, rel=1e-9)
 
 

@@ -85,6 +85,8 @@ class CohortValue:
     rate: float  # per tenure unit
     cash: np.ndarray
     active: np.ndarray  # active customers by tenure 0..H
+    expected_active: np.ndarray  # less those a pending failed payment is expected to end
+    pending: np.ndarray  # active customers with a failed payment still in its grace period
     scenario_inputs: ScenarioInputs
 
 
@@ -186,6 +188,7 @@ def value_customers(
         raise UserError("the price change must be between -0.9 (-90 %) and 5 (+500 %).")
     revenue = revenue_counts(extract, config)
     active_rows = run_value_query("active_base", extract, config, {})
+    pending_rows, recovery = _pending_failures(extract, config)
     cohorts: list[CohortValue] = []
     skipped: list[tuple[str, str]] = []
     for cohort in models.cohorts:  # a few cohorts
@@ -214,10 +217,20 @@ def value_customers(
         part = active_rows.filter(pl.col("cohort") == cohort)
         t = np.clip(part["tenure"].to_numpy(), 0, horizon)
         np.add.at(active, t, part["active"].to_numpy().astype(float))
+        pending = np.zeros(horizon + 1)
+        if pending_rows.height:
+            part = pending_rows.filter(pl.col("cohort") == cohort)
+            t = np.clip(part["tenure"].to_numpy(), 0, horizon)
+            np.add.at(pending, t, part["n"].to_numpy().astype(float))
+        # a customer whose failed payment is still in its grace period stays with the share of
+        # failures the log shows recovered
+        expected = active - pending * (1 - recovery)
         inputs = ScenarioInputs(
-            curve, path.per_customer, settings.margin_rate, cost, rate, settings.timing, active
+            curve, path.per_customer, settings.margin_rate, cost, rate, settings.timing, expected
         )
-        cohorts.append(CohortValue(cohort, fit, curve, path, rate, cash, active, inputs))
+        cohorts.append(
+            CohortValue(cohort, fit, curve, path, rate, cash, active, expected, pending, inputs)
+        )
     if not cohorts:
         raise NothingToValue(
             "no cohort could be valued: no hazard model converged with a usable covariance. "
@@ -244,6 +257,31 @@ def value_customers(
         v.tables["price_response"] = response_table
         v.tables["price_scenario"], v.tables["price_sweep"] = _scenarios(v, change, rng)
     return v
+
+
+def _pending_failures(extract: Extract, config: Config) -> tuple[pl.DataFrame, float]:
+    """Active spells holding a failed payment still in its grace period (per cohort × tenure),
+    and the share of decided failures that were recovered (queries/pending_failures.sql)."""
+    codes = config.event_codes
+    if not codes.get("payment_failed"):
+        return pl.DataFrame(), 1.0
+    rows = run_value_query(
+        "pending_failures",
+        extract,
+        config,
+        {
+            "log_start": config.log_start,
+            "as_of": config.as_of,
+            "grace_days": config.grace_days,
+            "payment_failed_codes": list(codes["payment_failed"]),
+            "ok_codes": [*codes["payment_recovered"], *codes["renewal"]] or [""],
+        },
+    )
+    decided = rows.filter(pl.col("kind") == "decided")
+    failures = int(decided["n"].sum()) if decided.height else 0
+    recovered = int(decided["recovered"].sum()) if decided.height else 0
+    rate = recovered / failures if failures else 1.0
+    return rows.filter(pl.col("kind") == "pending"), rate
 
 
 def _share_beyond(c: CohortValue) -> float:
@@ -337,6 +375,8 @@ def _by_tenure_table(v: Valuation) -> pl.DataFrame:
                     "cohort": c.cohort,
                     "tenure": taus.astype(np.int64),
                     "active_customers": c.active[taus].astype(np.int64),
+                    "failed_payment_pending": c.pending[taus].astype(np.int64),
+                    "expected_active": c.expected_active[taus],
                     "mean_remaining": mean_remaining_lifetime(s)[0, taus],
                     "mean_remaining_model": model_mean_residual_life(
                         c.fit.survival, taus, c.curve.horizon
@@ -364,22 +404,28 @@ def _base_table(v: Valuation) -> pl.DataFrame:
     """The active base's value today per cohort and in all: Σ_τ n_τ V(τ), with intervals."""
     conf, st = v.confidence, v.settings
     rows, total_draws, total_point, total_n = [], None, 0.0, 0
+    total_pending, total_eff = 0, 0.0
     for c in v.cohorts:
-        point = float(residual_value(c.curve.survival, c.cash, c.rate, st.timing)[0] @ c.active)
-        draws = residual_value(c.curve.draws, c.cash, c.rate, st.timing) @ c.active
+        n_eff = c.expected_active
+        point = float(residual_value(c.curve.survival, c.cash, c.rate, st.timing)[0] @ n_eff)
+        draws = residual_value(c.curve.draws, c.cash, c.rate, st.timing) @ n_eff
         (lo,), (hi,) = interval(draws[:, None], conf)
-        n = int(c.active.sum())
+        n, pend = int(c.active.sum()), int(c.pending.sum())
         rows.append(
-            {"cohort": c.cohort, "active_customers": n, "value": point, "lower": float(lo),
+            {"cohort": c.cohort, "active_customers": n, "failed_payment_pending": pend,
+             "expected_active": float(n_eff.sum()), "value": point, "lower": float(lo),
              "upper": float(hi), "value_per_customer": point / n if n else float("nan")}
         )
         total_draws = draws if total_draws is None else total_draws + draws
         total_point += point
         total_n += n
+        total_pending += pend
+        total_eff += float(n_eff.sum())
     (lo,), (hi,) = interval(total_draws[:, None], conf)
     rows.append(
-        {"cohort": "all cohorts", "active_customers": total_n, "value": total_point,
-         "lower": float(lo), "upper": float(hi),
+        {"cohort": "all cohorts", "active_customers": total_n,
+         "failed_payment_pending": total_pending, "expected_active": total_eff,
+         "value": total_point, "lower": float(lo), "upper": float(hi),
          "value_per_customer": total_point / total_n if total_n else float("nan")}
     )
     return pl.DataFrame(rows).with_columns(pl.col(pl.Float64).fill_nan(None))
@@ -389,7 +435,7 @@ def _forecast(v: Valuation, rng: np.random.Generator) -> pl.DataFrame:
     periods = v.settings.forecast_periods
     frames, sums = [], None
     for c in v.cohorts:
-        parts = forecast_draws(c.curve, c.active, c.revenue.per_customer, periods, rng)
+        parts = forecast_draws(c.curve, c.expected_active, c.revenue.per_customer, periods, rng)
         frames.append(forecast_table(c.cohort, *parts, v.confidence))
         sums = list(parts) if sums is None else [a + b for a, b in zip(sums, parts, strict=True)]
     if len(v.cohorts) > 1:
