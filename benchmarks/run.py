@@ -271,6 +271,7 @@ def bare_scan(folder: Path) -> float:
     pattern = str(folder / "subscription_events" / "**" / "*.parquet").replace("'", "''")
     con = duckdb.connect(":memory:")
     try:
+        con.execute("SET enable_progress_bar = false")
         t0 = time.perf_counter()
         con.sql(
             "SELECT account_id, COUNT(*) AS n, MIN(occurred_at) AS first_at, "
