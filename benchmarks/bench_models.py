@@ -67,7 +67,7 @@ def main() -> None:
             interval=np.column_stack([exit_t[died] - 1, exit_t[died]]), right=exit_t[~died]
         )
         t0 = time.perf_counter()
-        c, _, scale = stats.weibull_min.fit(rows, floc=0)
+        c, _, _scale = stats.weibull_min.fit(rows, floc=0)
         t_scipy = time.perf_counter() - t0
         print(
             f"{n:>10,} {t_ours:>11.4f} {t_scipy:>9.3f} {t_scipy / t_ours:>7.0f}x"

@@ -158,6 +158,17 @@ def _period_months_expr(config: Config) -> str:
     return f"CASE {whens} ELSE {config.default_period_months!r} END"
 
 
+def _event_time_via(config: Config, source: Source) -> str:
+    """TIMESTAMP for a column of plain timestamps or dates (nothing to convert), TIMESTAMPTZ for
+    zone-aware timestamps and text (read in UTC): that conversion costs a zone lookup per row."""
+    from churnlife.quality import column_types
+
+    name = config.columns["event_time"]
+    dtype = column_types(source, "events", [name])[name] if name else None
+    plain = dtype == pl.Date or (isinstance(dtype, pl.Datetime) and dtype.time_zone is None)
+    return "TIMESTAMP" if plain else "TIMESTAMPTZ"
+
+
 def events_normalised_sql(config: Config, source: Source) -> str:
     """The user's event table renamed to roles (queries/events_normalised.sql)."""
     cols = {role: _col_or_null(config, source, role) for role in config.columns}
@@ -166,6 +177,7 @@ def events_normalised_sql(config: Config, source: Source) -> str:
         read_query("events_normalised"),
         {
             **cols,
+            "event_time_via": _event_time_via(config, source),
             "signup_date": cols["signup_date"] if in_events else "NULL",
             "channel": cols["channel"] if in_events else "NULL",
             "events": source.relation("events"),

@@ -8,7 +8,11 @@ Engines that cannot stage (e.g. PostgreSQL in a read-only transaction) compose t
 
 from __future__ import annotations
 
+import os
 import re
+import shutil
+import tempfile
+import weakref
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
@@ -73,6 +77,8 @@ class DuckDBSource:
         self._con.execute("SET TimeZone = 'UTC'").fetchall()
         # DuckDB draws a progress bar on stderr for long queries; churnlife's own output only
         self._con.execute("SET enable_progress_bar = false").fetchall()
+        # the spill folder goes when the source is closed, collected, or at exit
+        self._spill = weakref.finalize(self, shutil.rmtree, _memory_settings(self._con), True)
         self._names: dict[str, str] = {}
         if src.kind == "duckdb":
             path = src.database
@@ -164,6 +170,40 @@ class DuckDBSource:
 
     def close(self) -> None:
         self._con.close()
+        self._spill()
+
+
+MEMORY_LIMIT = "1GB"  # DuckDB's working memory; beyond it, operators spill to a temporary folder
+
+
+def _memory_settings(con: duckdb.DuckDBPyConnection) -> str:
+    """Bound DuckDB's memory so a log of any size runs in a laptop's memory: past the limit
+    (CHURNLIFE_MEMORY_LIMIT, default 1GB) joins, aggregates and sorts spill to a temporary folder
+    of churnlife's own (never beside the user's data).
+    CHURNLIFE_THREADS sets DuckDB's threads (default: one per core). Returns the folder."""
+    spill = tempfile.mkdtemp(prefix="churnlife-spill-")
+    limit = os.environ.get("CHURNLIFE_MEMORY_LIMIT", MEMORY_LIMIT)
+    threads = os.environ.get("CHURNLIFE_THREADS")
+    for name, value, sql, form in (
+        ("CHURNLIFE_MEMORY_LIMIT", limit, "SET memory_limit = {}", "a size such as 2GB or 500MB"),
+        ("CHURNLIFE_THREADS", threads, "SET threads = {}", "a whole number such as 2"),
+    ):
+        if value is None:
+            continue
+        try:
+            con.execute(sql.format(int(value) if name == "CHURNLIFE_THREADS" else
+                                   _literal(value))).fetchall()
+        except (duckdb.Error, ValueError) as err:
+            shutil.rmtree(spill, ignore_errors=True)
+            raise UserError(
+                f"{name} = {value!r} is not a setting churnlife can use ({_first_line(err)}). "
+                f"Give {form}, or unset {name}."
+            ) from None
+    con.execute(f"SET temp_directory = {_literal(spill)}").fetchall()
+    # Staged results need no particular row order (every query that returns rows orders them),
+    # which lets DuckDB stream large results instead of holding them to keep their order.
+    con.execute("SET preserve_insertion_order = false").fetchall()
+    return spill
 
 
 @contextmanager
@@ -178,6 +218,13 @@ def _engine_errors() -> Iterator[None]:
         if "interrupted" in str(err).lower():
             raise KeyboardInterrupt from None
         raise
+    except duckdb.OutOfMemoryException as err:
+        limit = os.environ.get("CHURNLIFE_MEMORY_LIMIT", MEMORY_LIMIT)
+        raise UserError(
+            f"the database ran out of the memory churnlife allows it ({limit}): "
+            f"{_first_line(err)}. Set the environment variable CHURNLIFE_MEMORY_LIMIT higher "
+            "(e.g. CHURNLIFE_MEMORY_LIMIT=4GB), or CHURNLIFE_THREADS=1 to need less at once."
+        ) from None
     except duckdb.ConversionException as err:
         raise UserError(
             f"a column in the log does not hold the type churnlife expects: {_first_line(err)}. "

@@ -1,11 +1,15 @@
 -- The user's event table, renamed to churnlife's roles.
 -- Template slots ({...}) are identifiers that config.py validated and source.py quoted; values are
--- bound parameters ($name). Exact duplicate rows are dropped here (counted in summary.sql).
--- Times go through TIMESTAMPTZ so that time-zone-aware values, and text carrying a UTC offset, are
--- read in UTC (the session's time zone is UTC); plain timestamps and dates are unchanged by this.
-SELECT DISTINCT
+-- bound parameters ($name). Exact duplicate rows are kept here: the spells do not depend on them
+-- (a repeated start or end is the second mark of a run, dropped by spells.sql's rule), and the
+-- queries that count events (summary.sql, quality.sql) drop them with DISTINCT themselves.
+-- Times go through TIMESTAMPTZ ({event_time_via}) so that time-zone-aware values, and text
+-- carrying a UTC offset, are read in UTC (the session's time zone is UTC); a plain timestamp or
+-- date column is cast straight to TIMESTAMP ({event_time_via} = TIMESTAMP), the same value
+-- without a per-row time-zone conversion.
+SELECT
     {customer_id}                  AS customer_id,
-    CAST(CAST({event_time} AS TIMESTAMPTZ) AS TIMESTAMP) AS event_time,
+    CAST(CAST({event_time} AS {event_time_via}) AS TIMESTAMP) AS event_time,
     CAST({event_kind} AS VARCHAR)  AS event_kind,
     CAST({plan} AS VARCHAR)        AS plan,
     CAST({price} AS DOUBLE)        AS price,

@@ -22,14 +22,12 @@ customer_info AS (
     {customer_info}
 ),
 
+-- Events inside the window with their role, every column kept: DISTINCT on these rows drops
+-- exact duplicates (events_normalised.sql keeps them) where a count depends on them.
 ev AS (
     SELECT
-        customer_id,
-        event_time,
+        *,
         CAST(event_time AS DATE) AS event_date,
-        plan,
-        price,
-        cancel_reason,
         CASE
             WHEN list_contains($start_codes, event_kind)             THEN 'start'
             WHEN list_contains($renewal_codes, event_kind)           THEN 'renewal'
@@ -39,46 +37,66 @@ ev AS (
             WHEN list_contains($price_change_codes, event_kind)      THEN 'price_change'
             WHEN list_contains($plan_change_codes, event_kind)       THEN 'plan_change'
         END AS role
-    FROM raw_events
+    -- its own scan of the log, not the raw_events CTE (which customer_info may read): a CTE
+    -- read by several queries is materialised, a copy of every event
+    FROM ({events_normalised}) AS raw
     WHERE event_time >= CAST($log_start AS TIMESTAMP)
       AND event_time < CAST($as_of AS TIMESTAMP) + INTERVAL 1 DAY
       AND customer_id IS NOT NULL
 ),
 
-ev_next_ok AS (
-    SELECT
-        *,
-        MIN(CASE WHEN role IN ('payment_recovered', 'renewal') THEN event_date END) OVER (
-            PARTITION BY customer_id ORDER BY event_time
-            ROWS BETWEEN 1 FOLLOWING AND UNBOUNDED FOLLOWING
-        ) AS next_ok_date
-    FROM ev
-    WHERE role IS NOT NULL
+ev_roles AS (
+    SELECT * FROM ev WHERE role IS NOT NULL
+),
+
+-- The events that can be a mark, each distinct row once.
+ev_marks AS (
+    SELECT DISTINCT * FROM ev_roles WHERE role IN ('start', 'cancel', 'payment_failed')
+),
+
+-- As in spells.sql: failed payments with no payment through by the failure's date + $grace_days.
+unrecovered AS (
+    SELECT f.customer_id, f.event_time
+    FROM ev_marks AS f
+    WHERE f.role = 'payment_failed'
+      AND f.event_date + $grace_days <= $as_of
+      AND NOT EXISTS (
+          SELECT 1
+          FROM ev_roles AS ok
+          WHERE ok.customer_id = f.customer_id
+            AND ok.role IN ('payment_recovered', 'renewal')
+            AND ok.event_time > f.event_time
+            AND ok.event_date <= f.event_date + $grace_days
+      )
+),
+
+-- As in spells.sql: the first event in the log (a start among events at the first instant wins).
+first_time AS (
+    SELECT customer_id, MIN(event_time) AS first_time
+    FROM ev_roles
+    GROUP BY customer_id
 ),
 
 first_in_log AS (
-    SELECT customer_id, role
-    FROM (
-        SELECT
-            customer_id, role,
-            ROW_NUMBER() OVER (PARTITION BY customer_id ORDER BY event_time) AS rn
-        FROM ev_next_ok
-    ) AS t
-    WHERE rn = 1
+    SELECT
+        e.customer_id,
+        CASE WHEN MAX(CASE WHEN e.role = 'start' THEN 1 ELSE 0 END) = 1
+             THEN 'start' ELSE 'other' END AS role
+    FROM ev_roles AS e
+    JOIN first_time AS t
+      ON t.customer_id = e.customer_id AND t.first_time = e.event_time
+    GROUP BY e.customer_id
 ),
 
 marks AS (
     SELECT customer_id, event_time, 'S' AS mark, CAST(NULL AS VARCHAR) AS cause
-    FROM ev_next_ok WHERE role = 'start'
+    FROM ev_marks WHERE role = 'start'
     UNION ALL
     SELECT customer_id, event_time, 'T', 'voluntary'
-    FROM ev_next_ok WHERE role = 'cancel'
+    FROM ev_marks WHERE role = 'cancel'
     UNION ALL
     SELECT customer_id, event_time, 'T', 'involuntary'
-    FROM ev_next_ok
-    WHERE role = 'payment_failed'
-      AND (next_ok_date IS NULL OR next_ok_date > event_date + $grace_days)
-      AND event_date + $grace_days <= $as_of
+    FROM unrecovered
     UNION ALL
     SELECT f.customer_id, CAST(c.signup_date AS TIMESTAMP), 'S', CAST(NULL AS VARCHAR)
     FROM first_in_log AS f
@@ -127,12 +145,17 @@ mark_counts AS (
 
 event_counts AS (
     SELECT
-        SUM(CASE WHEN e.event_date < c.signup_date THEN 1 ELSE 0 END)  AS n_before_signup,
-        COUNT(DISTINCT CASE WHEN s.customer_id IS NULL THEN e.customer_id END)
-                                                                       AS n_customers_without_spell
-    FROM ev_next_ok AS e
-    LEFT JOIN customer_info AS c ON c.customer_id = e.customer_id
-    LEFT JOIN (SELECT DISTINCT customer_id FROM {spells}) AS s ON s.customer_id = e.customer_id
+        (SELECT COUNT(*) FROM (
+            SELECT DISTINCT e.*
+            FROM ev_roles AS e
+            JOIN customer_info AS c ON c.customer_id = e.customer_id
+            WHERE e.event_date < c.signup_date
+        ) AS b)                                                        AS n_before_signup,
+        (SELECT COUNT(*)
+         FROM first_time AS t
+         LEFT JOIN (SELECT DISTINCT customer_id FROM {spells}) AS s
+           ON s.customer_id = t.customer_id
+         WHERE s.customer_id IS NULL)                                  AS n_customers_without_spell
 ),
 
 spell_counts AS (

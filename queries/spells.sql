@@ -42,35 +42,58 @@ ev AS (
             WHEN list_contains($price_change_codes, event_kind)      THEN 'price_change'
             WHEN list_contains($plan_change_codes, event_kind)       THEN 'plan_change'
         END AS role
-    FROM raw_events
+    -- its own scan of the log, not the raw_events CTE (which customer_info may read): a CTE
+    -- read by several queries is materialised, a copy of every event
+    FROM ({events_normalised}) AS raw
     WHERE event_time >= CAST($log_start AS TIMESTAMP)
       AND event_time < CAST($as_of AS TIMESTAMP) + INTERVAL 1 DAY
       AND customer_id IS NOT NULL
 ),
 
--- For every event, the first later payment that went through (a recovery or a renewal).
-ev_next_ok AS (
-    SELECT
-        *,
-        MIN(CASE WHEN role IN ('payment_recovered', 'renewal') THEN event_date END) OVER (
-            PARTITION BY customer_id ORDER BY event_time
-            ROWS BETWEEN 1 FOLLOWING AND UNBOUNDED FOLLOWING
-        ) AS next_ok_date
-    FROM ev
-    WHERE role IS NOT NULL
+-- Events with a role (codes listed under ignore have none).
+ev_roles AS (
+    SELECT * FROM ev WHERE role IS NOT NULL
+),
+
+-- Failed payments not recovered within the grace period: no later payment went through (a
+-- recovery or a renewal) by the failure's date + $grace_days. A join on the customer, not a
+-- window over every event of the log: failures are few, and only they need the look-ahead.
+unrecovered AS (
+    SELECT f.customer_id, f.event_time, f.event_date, f.plan, f.price
+    FROM ev_roles AS f
+    WHERE f.role = 'payment_failed'
+      AND f.event_date + $grace_days <= $as_of
+      AND NOT EXISTS (
+          SELECT 1
+          FROM ev_roles AS ok
+          WHERE ok.customer_id = f.customer_id
+            AND ok.role IN ('payment_recovered', 'renewal')
+            AND ok.event_time > f.event_time
+            AND ok.event_date <= f.event_date + $grace_days
+      )
 ),
 
 -- Customers who began before the log and are still active when it starts: their first event in the
--- log is not a start. They enter late, at their known signup date.
+-- log is not a start. They enter late, at their known signup date. The first event is found by
+-- its time (an aggregate, not a sort of every event); when several events share that first
+-- instant, a start among them counts as the first event, else the smallest plan and price.
+first_time AS (
+    SELECT customer_id, MIN(event_time) AS first_time
+    FROM ev_roles
+    GROUP BY customer_id
+),
+
 first_in_log AS (
-    SELECT customer_id, role, plan, price
-    FROM (
-        SELECT
-            customer_id, role, plan, price,
-            ROW_NUMBER() OVER (PARTITION BY customer_id ORDER BY event_time) AS rn
-        FROM ev_next_ok
-    ) AS t
-    WHERE rn = 1
+    SELECT
+        e.customer_id,
+        CASE WHEN MAX(CASE WHEN e.role = 'start' THEN 1 ELSE 0 END) = 1
+             THEN 'start' ELSE 'other' END AS role,
+        MIN(e.plan) AS plan,
+        MIN(e.price) AS price
+    FROM ev_roles AS e
+    JOIN first_time AS t
+      ON t.customer_id = e.customer_id AND t.first_time = e.event_time
+    GROUP BY e.customer_id
 ),
 
 -- Spell boundary marks: S = a start, T = an end (a cancel, or a failed payment that was not
@@ -79,18 +102,15 @@ marks AS (
     SELECT customer_id, event_time, event_date AS mark_date, 'S' AS mark, plan, price,
            CAST(NULL AS VARCHAR) AS cause, CAST(NULL AS VARCHAR) AS cancel_reason,
            FALSE AS late_entry
-    FROM ev_next_ok WHERE role = 'start'
+    FROM ev_roles WHERE role = 'start'
     UNION ALL
     SELECT customer_id, event_time, event_date, 'T', plan, price,
            'voluntary', cancel_reason, FALSE
-    FROM ev_next_ok WHERE role = 'cancel'
+    FROM ev_roles WHERE role = 'cancel'
     UNION ALL
     SELECT customer_id, event_time, event_date, 'T', plan, price,
            'involuntary', CAST(NULL AS VARCHAR), FALSE
-    FROM ev_next_ok
-    WHERE role = 'payment_failed'
-      AND (next_ok_date IS NULL OR next_ok_date > event_date + $grace_days)
-      AND event_date + $grace_days <= $as_of
+    FROM unrecovered
     UNION ALL
     SELECT f.customer_id, CAST(c.signup_date AS TIMESTAMP), c.signup_date, 'S', f.plan, f.price,
            CAST(NULL AS VARCHAR), CAST(NULL AS VARCHAR), TRUE
@@ -124,7 +144,9 @@ pieces AS (
             late_entry,
             LEAD(mark_date)     OVER w AS end_date,
             LEAD(cause)         OVER w AS cause,
-            LEAD(cancel_reason) OVER w AS cancel_reason
+            LEAD(cancel_reason) OVER w AS cancel_reason,
+            -- kept marks alternate S T S T, so the mark before a start is the previous end
+            LAG(mark_date)      OVER w AS prev_end
         FROM marks_kept
         WINDOW w AS (PARTITION BY customer_id ORDER BY event_time, mark)
     ) AS t
@@ -138,10 +160,7 @@ pieces_numbered AS (
         SUM(CASE WHEN prev_end IS NULL OR start_date - prev_end >= $gap_days THEN 1 ELSE 0 END)
             OVER (PARTITION BY customer_id ORDER BY start_time ROWS UNBOUNDED PRECEDING)
             AS spell_number
-    FROM (
-        SELECT *, LAG(end_date) OVER (PARTITION BY customer_id ORDER BY start_time) AS prev_end
-        FROM pieces
-    ) AS t
+    FROM pieces
 ),
 
 spell_rows AS (
@@ -152,14 +171,16 @@ spell_rows AS (
         FIRST_VALUE(plan)       OVER w_first AS plan,
         FIRST_VALUE(price)      OVER w_first AS price,
         FIRST_VALUE(late_entry) OVER w_first AS late_entry,
-        FIRST_VALUE(end_date)   OVER w_last  AS end_date,
-        FIRST_VALUE(cause)      OVER w_last  AS cause,
-        FIRST_VALUE(cancel_reason) OVER w_last AS cancel_reason,
+        LAST_VALUE(end_date)    OVER w_all   AS end_date,
+        LAST_VALUE(cause)       OVER w_all   AS cause,
+        LAST_VALUE(cancel_reason) OVER w_all AS cancel_reason,
         ROW_NUMBER() OVER w_first AS rn
     FROM pieces_numbered
+    -- one sort for both: the same partition and order, the second over the whole spell
     WINDOW
         w_first AS (PARTITION BY customer_id, spell_number ORDER BY start_time),
-        w_last  AS (PARTITION BY customer_id, spell_number ORDER BY start_time DESC)
+        w_all   AS (PARTITION BY customer_id, spell_number ORDER BY start_time
+                    ROWS BETWEEN UNBOUNDED PRECEDING AND UNBOUNDED FOLLOWING)
 ),
 
 spells AS (

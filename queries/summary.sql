@@ -2,8 +2,9 @@
 -- Template slots: {events} (the user's table), {events_normalised}, {spells} (spells relation),
 -- {customer_id}, {event_time} (quoted columns). Parameters: $log_start, $as_of (DATE).
 WITH
+-- Exact duplicate rows count once (events_normalised.sql keeps them).
 raw_events AS (
-    {events_normalised}
+    SELECT DISTINCT * FROM ({events_normalised}) AS t
 ),
 all_rows AS (
     SELECT
