@@ -18,6 +18,31 @@ def _cohort_colour(cohorts: list[str]) -> alt.Color:
     )
 
 
+def _band_and_line(
+    table: pl.DataFrame,
+    x: alt.X,
+    y: alt.Y,
+    lower: str,
+    upper: str,
+    colour: alt.Color,
+    tooltip: list[alt.Tooltip],
+    points: bool = True,
+    opacity: float = 0.18,
+) -> tuple[alt.Chart, alt.Chart]:
+    """A per-cohort estimate as a line over its interval band (same colour, band faint)."""
+    band = (
+        alt.Chart(table)
+        .mark_area(opacity=opacity)
+        .encode(x=x, y=f"{lower}:Q", y2=f"{upper}:Q", color=colour)
+    )
+    line = (
+        alt.Chart(table)
+        .mark_line(point=points, strokeWidth=2)
+        .encode(x=x, y=y, color=colour, tooltip=tooltip)
+    )
+    return band, line
+
+
 def new_customer_value_chart(table: pl.DataFrame, confidence: float) -> alt.LayerChart:
     """Value per new customer by cohort, a bar with its interval."""
     pct = round(confidence * 100)
@@ -55,26 +80,21 @@ def value_by_tenure_chart(table: pl.DataFrame, unit: str, confidence: float) -> 
     pct = round(confidence * 100)
     cohorts = table["cohort"].unique(maintain_order=True).to_list()
     x = alt.X("tenure:Q", title=f"Current tenure ({unit})", scale=alt.Scale(nice=False))
-    band = (
-        alt.Chart(table)
-        .mark_area(opacity=0.18)
-        .encode(x=x, y="value_lower:Q", y2="value_upper:Q", color=_cohort_colour(cohorts))
-    )
-    line = (
-        alt.Chart(table)
-        .mark_line(strokeWidth=2)
-        .encode(
-            x=x,
-            y=alt.Y("value_per_customer:Q", title="Expected discounted value ahead (money)"),
-            color=_cohort_colour(cohorts),
-            tooltip=[
-                alt.Tooltip("cohort:N", title="Cohort"),
-                alt.Tooltip("tenure:Q", title=f"Tenure ({unit})"),
-                alt.Tooltip("value_per_customer:Q", title="Value", format=",.0f"),
-                alt.Tooltip("mean_remaining:Q", title=f"Mean remaining ({unit})", format=".1f"),
-                alt.Tooltip("active_customers:Q", title="Active now"),
-            ],
-        )
+    band, line = _band_and_line(
+        table,
+        x,
+        alt.Y("value_per_customer:Q", title="Expected discounted value ahead (money)"),
+        "value_lower",
+        "value_upper",
+        _cohort_colour(cohorts),
+        [
+            alt.Tooltip("cohort:N", title="Cohort"),
+            alt.Tooltip("tenure:Q", title=f"Tenure ({unit})"),
+            alt.Tooltip("value_per_customer:Q", title="Value", format=",.0f"),
+            alt.Tooltip("mean_remaining:Q", title=f"Mean remaining ({unit})", format=".1f"),
+            alt.Tooltip("active_customers:Q", title="Active now"),
+        ],
+        points=False,
     )
     return _theme(
         alt.layer(band, line).properties(
@@ -90,27 +110,21 @@ def forecast_chart(table: pl.DataFrame, unit: str, confidence: float) -> alt.Lay
     cohorts = table["cohort"].unique(maintain_order=True).to_list()
     x = alt.X("units_ahead:Q", title=f"{unit.capitalize()} ahead of the as-of date",
               scale=alt.Scale(nice=False), axis=alt.Axis(format="d", tickMinStep=1))
-    band = (
-        alt.Chart(table)
-        .mark_area(opacity=0.18)
-        .encode(x=x, y="active_lower:Q", y2="active_upper:Q", color=_cohort_colour(cohorts))
-    )
-    line = (
-        alt.Chart(table)
-        .mark_line(point=True, strokeWidth=2)
-        .encode(
-            x=x,
-            y=alt.Y("expected_active:Q", title="Active customers (today's base)"),
-            color=_cohort_colour(cohorts),
-            tooltip=[
-                alt.Tooltip("cohort:N", title="Cohort"),
-                alt.Tooltip("units_ahead:Q", title=f"{unit} ahead"),
-                alt.Tooltip("expected_active:Q", title="Expected active", format=",.0f"),
-                alt.Tooltip("active_lower:Q", title=f"{pct}% lower", format=",.0f"),
-                alt.Tooltip("active_upper:Q", title=f"{pct}% upper", format=",.0f"),
-                alt.Tooltip("expected_revenue:Q", title="Expected revenue", format=",.0f"),
-            ],
-        )
+    band, line = _band_and_line(
+        table,
+        x,
+        alt.Y("expected_active:Q", title="Active customers (today's base)"),
+        "active_lower",
+        "active_upper",
+        _cohort_colour(cohorts),
+        [
+            alt.Tooltip("cohort:N", title="Cohort"),
+            alt.Tooltip("units_ahead:Q", title=f"{unit} ahead"),
+            alt.Tooltip("expected_active:Q", title="Expected active", format=",.0f"),
+            alt.Tooltip("active_lower:Q", title=f"{pct}% lower", format=",.0f"),
+            alt.Tooltip("active_upper:Q", title=f"{pct}% upper", format=",.0f"),
+            alt.Tooltip("expected_revenue:Q", title="Expected revenue", format=",.0f"),
+        ],
     )
     return _theme(
         alt.layer(band, line).properties(
@@ -164,31 +178,23 @@ def price_sweep_chart(sweep: pl.DataFrame, chosen: float, confidence: float) -> 
     data = sweep.filter(pl.col("change_in_base_value").is_not_null())
     cohorts = data["cohort"].unique(maintain_order=True).to_list()
     x = alt.X("price_change:Q", title="Price change", axis=alt.Axis(format="+%"))
-    band = (
-        alt.Chart(data)
-        .mark_area(opacity=0.16)
-        .encode(
-            x=x, y="change_in_base_lower:Q", y2="change_in_base_upper:Q",
-            color=_cohort_colour(cohorts),
-        )
-    )
-    line = (
-        alt.Chart(data)
-        .mark_line(point=True, strokeWidth=2)
-        .encode(
-            x=x,
-            y=alt.Y("change_in_base_value:Q", title="Change in the active base's value (money)"),
-            color=_cohort_colour(cohorts),
-            tooltip=[
-                alt.Tooltip("cohort:N", title="Cohort"),
-                alt.Tooltip("price_change:Q", title="Price change", format="+.0%"),
-                alt.Tooltip("hazard_ratio:Q", title="Churn hazard ratio", format=".3f"),
-                alt.Tooltip("change_in_base_value:Q", title="Change", format=",.0f"),
-                alt.Tooltip("change_in_base_lower:Q", title=f"{pct}% lower", format=",.0f"),
-                alt.Tooltip("change_in_base_upper:Q", title=f"{pct}% upper", format=",.0f"),
-                alt.Tooltip("break_even_hazard_ratio:Q", title="Break-even ratio", format=".3f"),
-            ],
-        )
+    band, line = _band_and_line(
+        data,
+        x,
+        alt.Y("change_in_base_value:Q", title="Change in the active base's value (money)"),
+        "change_in_base_lower",
+        "change_in_base_upper",
+        _cohort_colour(cohorts),
+        [
+            alt.Tooltip("cohort:N", title="Cohort"),
+            alt.Tooltip("price_change:Q", title="Price change", format="+.0%"),
+            alt.Tooltip("hazard_ratio:Q", title="Churn hazard ratio", format=".3f"),
+            alt.Tooltip("change_in_base_value:Q", title="Change", format=",.0f"),
+            alt.Tooltip("change_in_base_lower:Q", title=f"{pct}% lower", format=",.0f"),
+            alt.Tooltip("change_in_base_upper:Q", title=f"{pct}% upper", format=",.0f"),
+            alt.Tooltip("break_even_hazard_ratio:Q", title="Break-even ratio", format=".3f"),
+        ],
+        opacity=0.16,
     )
     zero = alt.Chart(pl.DataFrame({"y": [0.0]})).mark_rule(color="#5f6b6d").encode(y="y:Q")
     mark = (

@@ -40,6 +40,41 @@ class Chart(Block):
     caption: str = ""
 
 
+def range_text(lo: float | None, hi: float | None, fmt: str) -> str:
+    """An interval as the report writes it: "60.1–62.3%", "−270 to +790" (a range with signs
+    reads better with "to"), "13–not reached"; one number when both ends format alike (a
+    median interval on whole tenures can be a single tenure); "" when an end is missing."""
+    if lo is None or hi is None or lo != lo or hi != hi:
+        return ""
+    lo_s = "−∞" if lo == float("-inf") else format(lo, fmt)
+    hi_s = "not reached" if hi == float("inf") else format(hi, fmt)
+    if lo_s == hi_s:
+        return lo_s.replace("-", "−")
+    if fmt.endswith("%") and lo_s.endswith("%") and hi_s.endswith("%"):
+        lo_s = lo_s[:-1]
+    signed = lo < 0 or "+" in fmt
+    text = f"{lo_s} to {hi_s}" if signed else f"{lo_s}–{hi_s}"
+    return text.replace("-", "−")
+
+
+def estimate_text(value: float | None, lo: float | None, hi: float | None, fmt: str) -> str:
+    """ "588 (567–631)": an estimate with its interval in brackets, for compact tables; "—"
+    for a missing estimate, the estimate alone when the interval is missing."""
+    if value is None or value != value:
+        return "—"
+    shown = format(value, fmt).replace("-", "−")
+    span = range_text(lo, hi, fmt)
+    return f"{shown} ({span})" if span else shown
+
+
+def estimate_column(frame: pl.DataFrame, est: str, lo: str, hi: str, fmt: str) -> list[str]:
+    """``estimate_text`` for each row of a frame (rows are cohorts or tenures, never customers)."""
+    return [
+        estimate_text(e, a, b, fmt)
+        for e, a, b in zip(frame[est], frame[lo], frame[hi], strict=True)
+    ]
+
+
 @dataclass(frozen=True)
 class Headline:
     """One figure for the report's "At a glance" summary. Any section may carry headlines
@@ -72,18 +107,12 @@ class Headline:
 
     def interval_text(self) -> str:
         """ "60.1–62.3%" or "13–15 months"; "" when there is no interval to show."""
-        lo, hi = self.lower, self.upper
-        if self.value is None or lo is None or hi is None or lo != lo or hi != hi:
+        if self.value is None:
             return ""
-        lo_s = "−∞" if lo == float("-inf") else format(lo, self.fmt)
-        hi_s = "not reached" if hi == float("inf") else format(hi, self.fmt)
-        if self.fmt.endswith("%") and lo_s.endswith("%") and hi_s.endswith("%"):
-            lo_s = lo_s[:-1]
-        # a range that crosses zero or carries signs reads "−270 to +790", not "-270–+790"
-        signed = lo < 0 or "+" in self.fmt
-        text = f"{lo_s} to {hi_s}" if signed else f"{lo_s}–{hi_s}"
-        text = text.replace("-", "−")
-        return f"{text} {self.unit}" if self.unit and hi != float("inf") else text
+        text = range_text(self.lower, self.upper, self.fmt)
+        if text and self.unit and self.upper != float("inf"):
+            return f"{text} {self.unit}"
+        return text
 
     def as_dict(self) -> dict[str, Any]:
         def num(v: float | None) -> float | None:

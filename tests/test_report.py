@@ -81,6 +81,9 @@ def test_headline_number_and_interval_text():
     assert Headline("k", "T", "", None, missing="not reached").number() == "not reached"
     change = Headline("p", "T", "", 226447.0, -270806.0, 789339.0, fmt="+,.0f")
     assert change.number() == "+226,447" and change.interval_text() == "−270,806 to +789,339"
+    # a median interval on whole tenures can be one tenure: written once, not "14–14"
+    one = Headline("k", "T", "", 14.0, 14.0, 14.0, fmt=".0f", unit="months")
+    assert one.interval_text() == "14 months"
     d = m.as_dict()
     assert d["value"] == 14.0 and d["lower"] == 13.0 and d["unit"] == "months"
     assert json.loads(json.dumps(Headline("k", "T", "", 3.0, 1.0, float("inf")).as_dict()))[
@@ -206,3 +209,14 @@ def test_written_folder_has_png_and_svg_per_chart_and_headlines(demo_config, tmp
     assert any(
         h["cohort"] == "all cohorts" and h["value"] == pytest.approx(base["value"]) for h in whole
     )
+
+
+def test_estimate_text_in_compact_tables():
+    from churnlife.report import estimate_column, estimate_text
+
+    assert estimate_text(588.4, 567.0, 631.2, ",.0f") == "588 (567–631)"
+    assert estimate_text(-12.0, -40.0, 15.0, ",.0f") == "−12 (−40 to 15)"
+    assert estimate_text(float("nan"), 1.0, 2.0, ",.0f") == "—"
+    assert estimate_text(3.0, None, 4.0, ".1f") == "3.0"
+    frame = pl.DataFrame({"v": [1.0, 2.0], "lo": [0.5, 2.0], "hi": [1.5, 2.0]})
+    assert estimate_column(frame, "v", "lo", "hi", ".1f") == ["1.0 (0.5–1.5)", "2.0 (2.0)"]

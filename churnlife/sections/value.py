@@ -14,23 +14,24 @@ from churnlife.charts_value import (
     value_by_tenure_chart,
 )
 from churnlife.notes import Note, info
-from churnlife.report import Chart, Section, Table, Text, esc, params_html
+from churnlife.report import (
+    Chart,
+    Section,
+    Table,
+    Text,
+    esc,
+    estimate_column,
+    params_html,
+)
 from churnlife.value.valuation import CAUTIONS, Valuation
 
 MONEY = ",.0f"
 
 
-def _fmt(x, spec: str) -> str:
-    return "—" if x is None or x != x else format(x, spec)
-
-
 def _span(frame: pl.DataFrame, est: str, lo: str, hi: str, spec: str = MONEY) -> list[str]:
-    """'estimate (lower to upper)' per row, for the report's compact tables (the CSV beside
-    keeps the numbers in their own columns)."""
-    return [
-        f"{_fmt(e, spec)} ({_fmt(a, spec)} to {_fmt(b, spec)})"
-        for e, a, b in zip(frame[est], frame[lo], frame[hi], strict=True)  # one row per cohort
-    ]
+    """'estimate (interval)' per row, for the report's compact tables (the CSV beside keeps
+    the numbers in their own columns)."""
+    return estimate_column(frame, est, lo, hi, spec)
 
 
 def _pct(confidence: float) -> int:
