@@ -8,7 +8,7 @@
 --   $price_change_codes       LIST<VARCHAR>  event kinds that change the price
 -- Template slots
 --   {spells}             the staged spells relation (queries/spells.sql)
---   {events_normalised}  queries/events_normalised.sql (user's columns renamed to roles)
+--   {first_rises}        queries/first_rises.sql (each spell's first increase)
 --   {period_months}      SQL expression: billing period length in months of column `plan`
 --   {unit}               'days' | 'weeks' | 'months' | 'periods' (a literal chosen by churnlife)
 --
@@ -18,28 +18,8 @@
 -- the piece after enters at floor(c) and ends as the spell ends. A spell whose counted time ends
 -- before the change is one piece "before increase".
 WITH
-raw_events AS (
-    {events_normalised}
-),
-
-rises AS (
-    SELECT customer_id, CAST(event_time AS DATE) AS change_date, price AS new_price
-    FROM raw_events
-    WHERE list_contains($price_change_codes, event_kind)
-      AND event_time >= CAST($log_start AS TIMESTAMP)
-      AND event_time < CAST($as_of AS TIMESTAMP) + INTERVAL 1 DAY
-      AND price IS NOT NULL
-),
-
 first_rise AS (
-    SELECT s.customer_id, s.spell_number, MIN(r.change_date) AS change_date
-    FROM {spells} AS s
-    JOIN rises AS r
-      ON r.customer_id = s.customer_id
-     AND r.change_date > s.start_date
-     AND r.change_date <= COALESCE(s.end_date, CAST($as_of AS DATE))
-     AND r.new_price > s.price
-    GROUP BY s.customer_id, s.spell_number
+    {first_rises}
 ),
 
 -- The change instant in tenure units: complete calendar months from the start plus the elapsed

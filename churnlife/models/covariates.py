@@ -55,6 +55,18 @@ PRICE_STATES = ("before increase", "after increase")
 # --- the extract: counts by cohort × price state × tenure --------------------------------------
 
 
+def first_rises_sql(extract: Extract, config: Config) -> str:
+    """queries/first_rises.sql on the staged spells: each spell's first price increase (read by
+    episodes.sql and price_rises.sql)."""
+    return fill(
+        read_query("first_rises"),
+        {
+            "spells": extract.spells_relation,
+            "events_normalised": events_normalised_sql(config, extract.source),
+        },
+    )
+
+
 def episodes_counts(extract: Extract, config: Config) -> pl.DataFrame:
     """Counts per cohort × price_state × tenure from the staged spells split at each spell's
     first price increase (queries/episodes.sql, counted by queries/counts.sql in the engine).
@@ -69,7 +81,7 @@ def episodes_counts(extract: Extract, config: Config) -> pl.DataFrame:
         read_query("episodes"),
         {
             "spells": extract.spells_relation,
-            "events_normalised": events_normalised_sql(config, source),
+            "first_rises": first_rises_sql(extract, config),
             "period_months": _period_months_expr(config),
             "unit": config.tenure_unit,
         },

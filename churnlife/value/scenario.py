@@ -34,7 +34,11 @@ from scipy import optimize, stats
 from churnlife.config import Config
 from churnlife.errors import UserError
 from churnlife.extract import Extract
-from churnlife.models.covariates import episodes_counts, fit_piecewise_price
+from churnlife.models.covariates import (
+    episodes_counts,
+    first_rises_sql,
+    fit_piecewise_price,
+)
 from churnlife.value.curves import LifeCurve
 from churnlife.value.sql import run_value_query
 from churnlife.value.worth import interval, new_customer_value, residual_value
@@ -91,6 +95,7 @@ def price_responses(
             "as_of": config.as_of,
             "price_change_codes": list(config.event_codes["price_change"]),
         },
+        extra_slots={"first_rises": first_rises_sql(extract, config)},
     )
     size = {r["cohort"]: (r["mean_log_ratio"], r["spells_with_rise"]) for r in rises.to_dicts()}
     voluntary = counts.with_columns(
