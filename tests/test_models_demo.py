@@ -64,7 +64,7 @@ def test_true_survival_and_hazard_inside_the_bands(demo_models):
             weibull = demo_models.get(PLAN, "weibull")
             assert np.all(np.isnan(lo)) and np.all(np.isnan(hi)), name
             assert fit.loglik >= weibull.loglik - 1e-3, name
-            w_s, w_lo, w_hi, *_ = delta_band(weibull, CHECK_AT)
+            _w, w_lo, w_hi, *_ = delta_band(weibull, CHECK_AT)
             assert np.all((w_lo <= s_fit) & (s_fit <= w_hi)), name
             continue
         assert np.all((lo <= s_true[idx]) & (s_true[idx] <= hi)), name
