@@ -64,6 +64,10 @@ CAUTIONS = (
     "The price response is estimated from who received past increases, chosen by the business, "
     "not at random; it is only as wide as the increases seen. churnlife supports a pricing "
     "decision, it does not guarantee its outcome.",
+    "The base forecast's band treats customers as churning independently given cohort and "
+    "tenure; an event that moves a whole cohort at once (a price increase, a wave of failed "
+    "payments) spreads real outcomes wider. `churnlife value --backtest 12` shows how often "
+    "the band covered what happened on this log.",
 )
 
 
