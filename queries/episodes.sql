@@ -47,11 +47,11 @@ rise_at AS (
         customer_id,
         spell_number,
         CASE '{unit}'
-            WHEN 'days'  THEN CAST(change_date - start_date AS DOUBLE)
-            WHEN 'weeks' THEN CAST(change_date - start_date AS DOUBLE) / 7.0
-            ELSE (k + CAST(change_date - CAST(start_date + to_months(k) AS DATE) AS DOUBLE)
-                      / CAST(CAST(start_date + to_months(k + 1) AS DATE)
-                             - CAST(start_date + to_months(k) AS DATE) AS DOUBLE))
+            WHEN 'days'  THEN CAST(date_diff('day', start_date, change_date) AS DOUBLE)
+            WHEN 'weeks' THEN CAST(date_diff('day', start_date, change_date) AS DOUBLE) / 7.0
+            ELSE (k + CAST(date_diff('day', CAST(start_date + to_months(k) AS DATE), change_date) AS DOUBLE)
+                      / CAST(date_diff('day', CAST(start_date + to_months(k) AS DATE),
+                                       CAST(start_date + to_months(k + 1) AS DATE)) AS DOUBLE))
                  / CASE '{unit}' WHEN 'periods' THEN {period_months} ELSE 1.0 END
         END AS c
     FROM rise_k

@@ -127,7 +127,7 @@ joined AS (
     SELECT
         SUM(CASE WHEN mark = 'S' THEN 1 ELSE 0 END) AS n_starts_kept,
         SUM(CASE WHEN mark = 'S' AND prev_kept_date IS NOT NULL
-                  AND CAST(event_time AS DATE) - prev_kept_date < $gap_days
+                  AND date_diff('day', prev_kept_date, CAST(event_time AS DATE)) < $gap_days
                  THEN 1 ELSE 0 END)                 AS n_joined_returns
     FROM marks_kept
 ),

@@ -58,8 +58,8 @@ paid_k AS (
     SELECT
         {cohort_cols},
         CAST(CASE '{unit}'
-            WHEN 'days'  THEN paid_on - start_date
-            WHEN 'weeks' THEN FLOOR((paid_on - start_date) / 7.0)
+            WHEN 'days'  THEN date_diff('day', start_date, paid_on)
+            WHEN 'weeks' THEN FLOOR(date_diff('day', start_date, paid_on) / 7.0)
             WHEN 'months' THEN months_done
             ELSE FLOOR(months_done / {period_months} + 1e-9)
         END AS INTEGER) AS tenure,

@@ -157,7 +157,7 @@ pieces AS (
 pieces_numbered AS (
     SELECT
         *,
-        SUM(CASE WHEN prev_end IS NULL OR start_date - prev_end >= $gap_days THEN 1 ELSE 0 END)
+        SUM(CASE WHEN prev_end IS NULL OR date_diff('day', prev_end, start_date) >= $gap_days THEN 1 ELSE 0 END)
             OVER (PARTITION BY customer_id ORDER BY start_time ROWS UNBOUNDED PRECEDING)
             AS spell_number
     FROM pieces
@@ -239,10 +239,10 @@ instants_units AS (
         customer_id,
         spell_number,
         which,
-        CAST(at_date - start_date AS DOUBLE) AS elapsed_days,
-        k + CAST(at_date - CAST(start_date + to_months(k) AS DATE) AS DOUBLE)
-              / CAST(CAST(start_date + to_months(k + 1) AS DATE)
-                     - CAST(start_date + to_months(k) AS DATE) AS DOUBLE) AS elapsed_months,
+        CAST(date_diff('day', start_date, at_date) AS DOUBLE) AS elapsed_days,
+        k + CAST(date_diff('day', CAST(start_date + to_months(k) AS DATE), at_date) AS DOUBLE)
+              / CAST(date_diff('day', CAST(start_date + to_months(k) AS DATE),
+                                       CAST(start_date + to_months(k + 1) AS DATE)) AS DOUBLE) AS elapsed_months,
         {period_months} AS period_months
     FROM instants_k
 ),
