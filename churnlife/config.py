@@ -32,7 +32,9 @@ EVENT_ROLES = (
 REQUIRED_ROLES = ("start", "cancel")
 COLUMN_ROLES_EVENTS = ("customer_id", "event_time", "event_kind", "plan", "price", "cancel_reason")
 COLUMN_ROLES_CUSTOMERS = ("signup_date", "channel")
-SOURCE_KINDS = ("duckdb", "files")
+SOURCE_KINDS = ("duckdb", "files", "postgres", "spark")
+SPARK_FILE_FORMATS = ("parquet", "orc", "csv", "json")
+URL_ENV_DEFAULT = "CHURNLIFE_SOURCE_URL"
 INTERVAL_KINDS = ("log-log", "plain")
 INCOMPLETE_ROWS = ("stop", "drop")
 
@@ -47,6 +49,33 @@ class SourceConfig:
     events: str
     customers: str | None
     read_options: dict[str, Any] = field(default_factory=dict)
+    # kinds postgres and spark: where the engine is (a URL in the config or, for credentials,
+    # in an environment variable), and how long one query may run
+    url: str | None = None
+    url_env: str = URL_ENV_DEFAULT
+    statement_timeout_s: int = 1800
+    file_format: str | None = None  # spark: events/customers are paths in this format
+    spark_conf: dict[str, str] = field(default_factory=dict)
+
+    def resolve_url(self) -> str:
+        """The engine's URL: the environment variable ``url_env`` when it is set, else ``url``."""
+        import os
+
+        value = os.environ.get(self.url_env) or self.url
+        if not value:
+            what = "PostgreSQL connection URL" if self.kind == "postgres" else "Spark master URL"
+            raise UserError(
+                f"no {what}: set the environment variable {self.url_env} (for example "
+                + ("postgresql://analyst@db.example:5432/subscriptions"
+                   if self.kind == "postgres" else "spark://warehouse:7077")
+                + ") or [source] url in the config (without a password)."
+            )
+        return value
+
+
+def redact_url(url: str) -> str:
+    """``url`` with any password replaced by ***, for messages and the report."""
+    return re.sub(r"(://[^:/@]*:)[^@]*@", r"\1***@", url)
 
 
 @dataclass(frozen=True)
@@ -93,7 +122,10 @@ class Config:
 
 
 _SCHEMA: dict[str, tuple[str, ...]] = {
-    "source": ("kind", "database", "events", "customers", "read_options"),
+    "source": (
+        "kind", "database", "events", "customers", "read_options", "url", "url_env",
+        "statement_timeout_s", "file_format", "spark_conf",
+    ),
     "columns": COLUMN_ROLES_EVENTS + COLUMN_ROLES_CUSTOMERS,
     "event_codes": EVENT_ROLES,
     "window": ("log_start", "as_of"),
@@ -247,10 +279,7 @@ def _codes(raw: dict) -> dict[str, tuple[str, ...]]:
     return codes
 
 
-def parse_config(raw: dict[str, Any], base: Path, config_path: Path | None = None) -> Config:
-    """Validate a config already read into a dict."""
-    _check_keys(raw)
-
+def _parse_source(raw: dict[str, Any], base: Path) -> SourceConfig:
     kind = _get(raw, "source", "kind", str, "duckdb")
     if kind not in SOURCE_KINDS:
         raise UserError(
@@ -261,6 +290,15 @@ def parse_config(raw: dict[str, Any], base: Path, config_path: Path | None = Non
     events = _get(raw, "source", "events", str)
     customers = _get(raw, "source", "customers", str, None)
     read_options = _get(raw, "source", "read_options", dict, {})
+    engine_keys = {"url", "url_env", "statement_timeout_s", "file_format", "spark_conf"}
+    given = engine_keys & set(raw.get("source", {}))
+    if kind in ("duckdb", "files") and given:
+        raise UserError(
+            f"config: [source] {', '.join(sorted(given))} only apply to kind = \"postgres\" or "
+            f'"spark"; this source is kind = "{kind}". Remove them or change the kind.'
+        )
+    if kind in ("postgres", "spark"):
+        return _engine_source(raw, kind, base, events, customers, read_options)
     if kind == "duckdb":
         if database is None:
             raise UserError(
@@ -276,7 +314,78 @@ def parse_config(raw: dict[str, Any], base: Path, config_path: Path | None = Non
         db_path = None
         events = str(base / events)
         customers = str(base / customers) if customers is not None else None
-    source = SourceConfig(kind, db_path, events, customers, read_options)
+    return SourceConfig(kind, db_path, events, customers, read_options)
+
+
+def _engine_source(
+    raw: dict[str, Any],
+    kind: str,
+    base: Path,
+    events: str,
+    customers: str | None,
+    read_options: dict[str, Any],
+) -> SourceConfig:
+    """[source] for kind postgres (tables) or spark (catalog tables, or files in file_format)."""
+    if raw["source"].get("database") is not None:
+        raise UserError(
+            f'config: [source] database is for kind = "duckdb"; kind = "{kind}" reads from the '
+            "server named by [source] url or the url_env environment variable. Remove database."
+        )
+    url = _get(raw, "source", "url", str, None)
+    url_env = _get(raw, "source", "url_env", str, URL_ENV_DEFAULT)
+    if not re.fullmatch(r"[A-Za-z_][A-Za-z0-9_]*", url_env):
+        raise UserError(
+            f"config: [source] url_env = {url_env!r} is not an environment variable name. "
+            "Use letters, digits and _ (for example CHURNLIFE_SOURCE_URL)."
+        )
+    if url is not None and kind == "postgres" and re.search(r"://[^/@]*:[^@/]*@", url):
+        raise UserError(
+            "config: [source] url holds a password. Config files are shared and copied: put "
+            f"the URL with its password in the environment variable {url_env} instead (or use "
+            "a ~/.pgpass file), and remove it from the config."
+        )
+    timeout = _get(raw, "source", "statement_timeout_s", int, 1800)
+    if timeout <= 0:
+        raise UserError(
+            "config: [source] statement_timeout_s must be a positive number of seconds, "
+            "e.g. 1800."
+        )
+    file_format = _get(raw, "source", "file_format", str, None)
+    conf = _get(raw, "source", "spark_conf", dict, {})
+    if kind == "postgres" and (file_format is not None or conf):
+        raise UserError(
+            'config: [source] file_format and spark_conf are for kind = "spark". Remove them.'
+        )
+    if file_format is not None and file_format not in SPARK_FILE_FORMATS:
+        raise UserError(
+            f'config: [source] file_format = "{file_format}" is not known.'
+            f"{did_you_mean(file_format, SPARK_FILE_FORMATS)} Use one of: "
+            f"{', '.join(SPARK_FILE_FORMATS)}."
+        )
+    if read_options and file_format is None:
+        raise UserError(
+            f'config: [source] read_options apply to files; kind = "{kind}" reads tables unless '
+            "file_format is set. Set file_format or remove read_options."
+        )
+    if file_format is None:
+        check_identifier(events, "[source] events table")
+        if customers is not None:
+            check_identifier(customers, "[source] customers table")
+    else:
+        events = str(base / events)
+        customers = str(base / customers) if customers is not None else None
+    return SourceConfig(
+        kind, None, events, customers, read_options, url, url_env, timeout, file_format,
+        {str(k): str(v) for k, v in conf.items()},
+    )
+
+
+def parse_config(raw: dict[str, Any], base: Path, config_path: Path | None = None) -> Config:
+    """Validate a config already read into a dict."""
+    _check_keys(raw)
+    source = _parse_source(raw, base)
+    kind = source.kind
+    customers = source.customers
 
     columns: dict[str, str | None] = {}
     cols = raw.get("columns", {})
@@ -374,7 +483,7 @@ def parse_config(raw: dict[str, Any], base: Path, config_path: Path | None = Non
 
     customers_cols = [c for c in COLUMN_ROLES_CUSTOMERS if columns[c] is not None]
     where = "customers" if customers is not None else "events"
-    if customers is None and kind == "duckdb" and columns["signup_date"] is not None:
+    if customers is None and kind != "files" and columns["signup_date"] is not None:
         where = "events"
     if customers is not None and not customers_cols:
         raise UserError(

@@ -94,7 +94,8 @@ def rewrite(tree: exp.Expression, params: dict[str, Any], dialect: str) -> exp.E
         if isinstance(node, exp.Anonymous) and node.name.lower() == "to_months":
             (k,) = node.expressions
             if dialect == "spark":
-                return exp.Anonymous(this="MAKE_YM_INTERVAL", expressions=[exp.Literal.number(0), k])
+                zero_years = exp.Literal.number(0)
+                return exp.Anonymous(this="MAKE_YM_INTERVAL", expressions=[zero_years, k])
             return exp.Paren(
                 this=exp.Mul(this=exp.Paren(this=k), expression=_interval_month())
             )
@@ -205,3 +206,43 @@ def with_staged(tree: exp.Expression, staged: list[tuple[str, exp.Expression]]) 
 def referenced_tables(tree: exp.Expression) -> set[str]:
     """Unqualified names of the tables ``tree`` reads (to find the staged ones it needs)."""
     return {t.name for t in tree.find_all(exp.Table)}
+
+
+class Composer:
+    """Staged queries kept as text, for an engine that cannot keep a result (PostgreSQL in a
+    read-only transaction): a query that reads staged names gets those stages, and the stages
+    they read, in front of it as CTEs, in staging order. Each stage's parameter markers get a
+    prefix of their own (``s1_as_of``), so a stage keeps its values whatever the later query
+    binds."""
+
+    def __init__(self, dialect: str) -> None:
+        self.dialect = dialect
+        # name -> (text with prefixed markers, its values, the stage names it reads)
+        self._stages: dict[str, tuple[exp.Expression, dict[str, Any], set[str]]] = {}
+
+    def stage(self, name: str, sql: str, params: dict[str, Any]) -> str:
+        prefix = f"s{len(self._stages) + 1}_"
+        tree = parse(sql)
+        names = set(placeholders(tree))
+        values = {prefix + n: v for n, v in params.items() if n in names}
+        reads = referenced_tables(tree) & self._stages.keys()
+        self._stages[name] = (rename_placeholders(tree, prefix), values, reads)
+        return name
+
+    def _needed(self, tree: exp.Expression) -> list[str]:
+        needed = referenced_tables(tree) & self._stages.keys()
+        frontier = set(needed)
+        while frontier:
+            more = set().union(*(self._stages[n][2] for n in frontier)) - needed
+            needed |= more
+            frontier = more
+        return [n for n in self._stages if n in needed]  # staging order: reads come first
+
+    def statement(self, sql: str, params: dict[str, Any]) -> Statement:
+        tree = parse(sql)
+        needed = self._needed(tree)
+        values = dict(params)
+        for n in needed:
+            values.update(self._stages[n][1])
+        tree = with_staged(tree, [(n, self._stages[n][0]) for n in needed])
+        return bind(rewrite(tree, values, self.dialect), values, self.dialect)

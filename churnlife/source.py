@@ -2,8 +2,12 @@
 
 A ``Source`` runs SQL text with named parameters inside the engine and returns polars frames
 through Arrow. It also *stages* intermediate results (the spells) where the engine allows it without
-touching the user's data: DuckDB keeps them in its in-memory catalogue, never in the user's file.
-Engines that cannot stage (e.g. PostgreSQL in a read-only transaction) compose the SQL as a CTE.
+touching the user's data: DuckDB keeps them in its in-memory catalogue, never in the user's file;
+Spark as checkpointed temporary views of its session. PostgreSQL, in a read-only transaction,
+cannot keep a result, so a staged query is composed into each query that reads it as a CTE.
+
+Every query is written once, in DuckDB's SQL (queries/); PostgreSQL and Spark get it translated
+(churnlife/dialects.py). ``statement`` shows the text an engine would run, for --show-sql.
 """
 
 from __future__ import annotations
@@ -22,6 +26,7 @@ import duckdb
 import polars as pl
 
 from churnlife.config import Config
+from churnlife.dialects import Statement
 from churnlife.errors import UserError, did_you_mean
 
 _PARAM = re.compile(r"\$([A-Za-z_][A-Za-z0-9_]*)")
@@ -47,6 +52,9 @@ class Source(Protocol):
 
     def stage(self, name: str, sql: str, params: dict[str, Any]) -> str:
         """Keep the result of ``sql`` under ``name``; return SQL that refers to it."""
+
+    def statement(self, sql: str, params: dict[str, Any]) -> Statement:
+        """The text this engine would run for ``sql`` and the values it would bind."""
 
     def close(self) -> None: ...
 
@@ -168,6 +176,9 @@ class DuckDBSource:
             ).fetchall()
         return f"temp.main.{table}"
 
+    def statement(self, sql: str, params: dict[str, Any]) -> Statement:
+        return Statement(sql, used_params(sql, params), "duckdb")
+
     def close(self) -> None:
         self._con.close()
         self._spill()
@@ -257,5 +268,13 @@ def _literal(value: Any) -> str:
 
 
 def open_source(config: Config) -> Source:
-    """Open the configured engine (DuckDB file or files today)."""
+    """Open the configured engine: DuckDB (a file, or Parquet/CSV files), PostgreSQL or Spark."""
+    if config.source.kind == "postgres":
+        from churnlife.source_postgres import PostgresSource
+
+        return PostgresSource(config)
+    if config.source.kind == "spark":
+        from churnlife.source_spark import SparkSource
+
+        return SparkSource(config)
     return DuckDBSource(config)
