@@ -46,16 +46,16 @@ class Statement:
     dialect: str
 
     def listing(self) -> str:
-        """The text followed by its bound values as SQL comments (for --show-sql)."""
+        """The text, ended by ``;``, and its bound values as SQL comments (for --show-sql)."""
         if not self.values:
-            return self.text
+            return self.text + ";"
         items = (
             self.values.items()
             if isinstance(self.values, dict)
             else ((f"${i}", v) for i, v in enumerate(self.values, start=1))
         )
         lines = [f"--   {name} = {_show(value)}" for name, value in items]
-        return self.text + "\n-- bound values:\n" + "\n".join(lines)
+        return self.text + ";\n-- bound values:\n" + "\n".join(lines)
 
 
 def _show(value: Any) -> str:

@@ -118,6 +118,11 @@ class PostgresSource:
         self._staged += 1
         return self._composer.stage(f"churnlife_{name}_{self._staged}", sql, params)
 
+    def plan_stage(
+        self, name: str, sql: str, params: dict[str, Any]
+    ) -> tuple[str, Statement | None]:
+        return self.stage(name, sql, params), None  # staging only records the text here
+
     def close(self) -> None:
         self._finalizer()
 

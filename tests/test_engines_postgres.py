@@ -260,3 +260,57 @@ def test_results_are_counts_sized(demo_pg, pg_env):
     )["b"][0]
     assert source.bytes_fetched < log_bytes / 10
     source.close()
+
+
+def test_text_times_read_as_duckdb_reads_them(server, tmp_path, monkeypatch):
+    """Times held as text (queries/text_values.postgres.sql checks their shape, since PostgreSQL
+    has no TRY_CAST): the same counts as DuckDB's typed log; an unreadable value is named."""
+    write_log(tmp_path, EDGE_EVENTS, EDGE_CUSTOMERS)
+    load_duckdb_tables(server.url, tmp_path / "log.duckdb", schema="edge_text")
+    server.psql(
+        "CREATE TABLE edge_text.ev_text AS SELECT cid, to_char(ts, 'YYYY-MM-DD HH24:MI:SS') AS ts,"
+        " kind, plan, price, why FROM edge_text.ev;"
+        "CREATE TABLE edge_text.ev_bad AS SELECT * FROM edge_text.ev_text;"
+        "INSERT INTO edge_text.ev_bad VALUES (99, 'next tuesday', 'start', 'm', 10, NULL)"
+    )
+    monkeypatch.setenv("CHURNLIFE_SOURCE_URL", server.url)
+    duck = parse_config(config_dict(cohorts={"by": ["plan"]}), base=tmp_path)
+
+    def pg_config(events: str):
+        cfg = config_dict(cohorts={"by": ["plan"]}, source={
+            "kind": "postgres", "events": events, "customers": "edge_text.cu"})
+        del cfg["source"]["database"]
+        return parse_config(cfg, base=tmp_path)
+
+    d = run_extract(duck, open_source(duck))
+    p = run_extract(pg_config("edge_text.ev_text"), open_source(pg_config("edge_text.ev_text")))
+    assert_frame_equal(d.counts, p.counts)
+    bad = pg_config("edge_text.ev_bad")
+    with pytest.raises(UserError, match="next tuesday"):
+        run_extract(bad, open_source(bad))
+
+
+def test_show_sql_prints_what_runs(demo_pg, pg_env, tmp_path):
+    """--show-sql prints PostgreSQL's statements without running them; the printed counts
+    statement, run with its printed values, gives the extract's counts."""
+    from churnlife.show_sql import extract_statements
+
+    cfg = load_config(demo_pg / "pg.toml")
+    run = subprocess.run(
+        [sys.executable, "-m", "churnlife", "run", "--config", str(demo_pg / "pg.toml"),
+         "--output", str(tmp_path / "out"), "--show-sql"],
+        capture_output=True, text=True, timeout=300, env=dict(os.environ),
+    )
+    assert run.returncode == 0, run.stderr
+    assert "for PostgreSQL" in run.stdout and "READ ONLY" in run.stdout
+    assert not (tmp_path / "out").exists()
+    source = open_source(cfg)
+    statements = dict(extract_statements(cfg, source))
+    counts = next(st for title, st in statements.items() if title.startswith("survival counts"))
+    assert counts.text in run.stdout
+    from churnlife.source_postgres import _to_polars
+
+    shown = _to_polars(source._run(counts.text, counts.values))  # type: ignore[attr-defined]
+    expected = run_extract(cfg, open_source(cfg)).counts
+    assert_frame_equal(shown.drop("cohort_all", strict=False), expected)
+    source.close()
