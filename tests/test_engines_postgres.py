@@ -78,6 +78,23 @@ def pg_env(server, monkeypatch):
     return server.url
 
 
+@pytest.fixture(autouse=True)
+def source_unchanged(server):
+    """After every test, every table that was on the server before it holds the same rows."""
+    before = {t: _checksum(server, t) for t in _tables(server)}
+    yield
+    after = {t: _checksum(server, t) for t in before}
+    assert after == before
+
+
+def _tables(server) -> list[str]:
+    out = server.psql(
+        "SELECT table_schema || '.' || table_name FROM information_schema.tables "
+        "WHERE table_schema NOT IN ('pg_catalog', 'information_schema')"
+    )
+    return out.split()
+
+
 def _checksum(server, table: str) -> str:
     """Row count and an order-independent digest of every row (the source must not change)."""
     return server.psql(
