@@ -201,13 +201,23 @@ def customer_info_sql(config: Config, source: Source) -> str:
     )
 
 
-def spells_sql(config: Config, source: Source) -> str:
-    """The complete spells query for this config and engine."""
+def marks_sql(config: Config, source: Source) -> str:
+    """The boundary marks query for this config and engine (queries/marks.sql)."""
+    events_norm = events_normalised_sql(config, source)
+    return fill(
+        read_query("marks"),
+        {"events_normalised": events_norm, "customer_info": customer_info_sql(config, source)},
+    )
+
+
+def spells_sql(config: Config, source: Source, marks_relation: str) -> str:
+    """The spells query for this config and engine, reading the staged marks."""
     events_norm = events_normalised_sql(config, source)
     customer_info = customer_info_sql(config, source)
     return fill(
         read_query("spells"),
         {
+            "marks": marks_relation,
             "events_normalised": events_norm,
             "customer_info": customer_info,
             "period_months": _period_months_expr(config),
@@ -215,6 +225,20 @@ def spells_sql(config: Config, source: Source) -> str:
             "unit": config.tenure_unit,
         },
     )
+
+
+def stage_marks(config: Config, source: Source, params: dict[str, Any]) -> str:
+    """Stage the boundary marks (queries/marks.sql); return the relation."""
+    return source.stage("marks", marks_sql(config, source), params)
+
+
+def stage_spells(
+    config: Config, source: Source, params: dict[str, Any], marks_relation: str | None = None
+) -> str:
+    """Stage the marks (unless given), then the spells made from them; return the spells
+    relation."""
+    marks = marks_relation or stage_marks(config, source, params)
+    return source.stage("spells", spells_sql(config, source, marks), params)
 
 
 def counts_sql(spells_relation: str, cohorts: tuple[str, ...]) -> str:
@@ -256,7 +280,8 @@ def run_extract(config: Config, source: Source) -> Extract:
     params = parameters(config)
     checked = quality.check_log(config, source, params)  # stops on what cannot be handled
     _check_codes(config, source, params)
-    spells_rel = source.stage("spells", spells_sql(config, source), params)
+    marks_rel = stage_marks(config, source, params)
+    spells_rel = stage_spells(config, source, params, marks_rel)
     counts = count_spells(source, spells_rel, config.cohorts)
     summary_sql = fill(
         read_query("summary"),
@@ -274,7 +299,7 @@ def run_extract(config: Config, source: Source) -> Extract:
     if summary["n_spells"]:
         summary.update(
             quality.count_anomalies(
-                config, source, params, spells_rel, customer_info_sql(config, source)
+                config, source, params, marks_rel, spells_rel, customer_info_sql(config, source)
             )
         )
     if not summary["n_spells"]:

@@ -243,10 +243,11 @@ def explain_empty_window(config: Config, summary: dict[str, Any]) -> None:
 
 
 def count_anomalies(
-    config: Config, source: Source, params: dict[str, Any], spells_relation: str,
-    customer_info_sql: str,
+    config: Config, source: Source, params: dict[str, Any], marks_relation: str,
+    spells_relation: str, customer_info_sql: str,
 ) -> dict[str, Any]:
-    """The handled anomalies' counts (queries/quality.sql, queries/quality_customers.sql)."""
+    """The handled anomalies' counts (queries/quality.sql, queries/quality_customers.sql), from
+    the staged boundary marks (queries/marks.sql) and the spells made from them."""
     from churnlife.extract import events_normalised_sql, fill, read_query
 
     sql = fill(
@@ -254,6 +255,7 @@ def count_anomalies(
         {
             "events_normalised": events_normalised_sql(config, source),
             "customer_info": customer_info_sql,
+            "marks": marks_relation,
             "spells": spells_relation,
         },
     )
