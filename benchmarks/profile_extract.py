@@ -22,6 +22,7 @@ import sys
 import tempfile
 import time
 from collections.abc import Callable
+from importlib import resources
 from pathlib import Path
 from typing import Any
 
@@ -29,8 +30,6 @@ from churnlife import extract as extract_module
 from churnlife import source as source_module
 from churnlife.config import load_config
 from churnlife.extract import read_query
-
-QUERIES = Path(__file__).resolve().parents[1] / "queries"
 
 
 class Recorder:
@@ -41,7 +40,9 @@ class Recorder:
         self.top = top
         self.filled: dict[str, str] = {}
         self.rows: list[dict[str, Any]] = []
-        self.templates = {read_query(p.stem): p.stem for p in QUERIES.glob("*.sql")}
+        names = [p.name[:-4] for p in resources.files("churnlife.queries").iterdir()
+                 if p.name.endswith(".sql")]
+        self.templates = {read_query(name): name for name in names}
         self.load = os.getloadavg()[0]
 
     def label(self, sql: str) -> str:

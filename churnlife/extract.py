@@ -74,6 +74,7 @@ def parameters(config: Config) -> dict[str, Any]:
         "grace_days": config.grace_days,
         "gap_days": config.reactivation_gap_days,
         "known_codes": known,
+        "role_codes": [c for role in codes if role != "ignore" for c in codes[role]] or [""],
         **{f"{role}_codes": list(codes[role]) or [""] for role in codes if role != "ignore"},
     }
 

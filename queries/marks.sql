@@ -1,8 +1,9 @@
 -- marks.sql: the spell boundary marks of every customer, formed once from the event log and staged;
 -- spells.sql turns them into spells and quality.sql counts what their rules drop ({marks} there).
 --
--- Parameters: $log_start, $as_of (DATE), $grace_days (INT), $start_codes ... $plan_change_codes
--- (LIST<VARCHAR>), as in spells.sql.
+-- Parameters: $log_start, $as_of (DATE), $grace_days (INT), $start_codes, $cancel_codes,
+-- $payment_failed_codes, $renewal_codes, $payment_recovered_codes and $role_codes (every code
+-- with a role: all but those listed under ignore) (LIST<VARCHAR>).
 -- Template slots
 --   {events_normalised}  queries/events_normalised.sql (user's columns renamed to roles)
 --   {customer_info}      queries/customers_from_table.sql or customers_from_events.sql
@@ -22,41 +23,42 @@ customer_info AS (
     {customer_info}
 ),
 
--- Events inside the window, with their role. Events after the as-of date are ignored.
-ev AS (
-    SELECT
+-- The events that can be a mark (starts, cancels, failed payments) inside the window, each
+-- distinct event row once. Events after the as-of date are ignored. Every CTE below reads the log
+-- in its own scan, filtered on the codes it needs: a CTE read twice is materialised, a copy of
+-- every event (benchmarks/RESULTS.md).
+ev_marks AS (
+    SELECT DISTINCT
         *,
         CAST(event_time AS DATE) AS event_date,
         CASE
-            WHEN list_contains($start_codes, event_kind)             THEN 'start'
-            WHEN list_contains($renewal_codes, event_kind)           THEN 'renewal'
-            WHEN list_contains($cancel_codes, event_kind)            THEN 'cancel'
-            WHEN list_contains($payment_failed_codes, event_kind)    THEN 'payment_failed'
-            WHEN list_contains($payment_recovered_codes, event_kind) THEN 'payment_recovered'
-            WHEN list_contains($price_change_codes, event_kind)      THEN 'price_change'
-            WHEN list_contains($plan_change_codes, event_kind)       THEN 'plan_change'
+            WHEN list_contains($start_codes, event_kind)  THEN 'start'
+            WHEN list_contains($cancel_codes, event_kind) THEN 'cancel'
+            ELSE 'payment_failed'
         END AS role
-    -- its own scan of the log, not the raw_events CTE (which customer_info may read): a CTE
-    -- read by several queries is materialised, a copy of every event
     FROM ({events_normalised}) AS raw
     WHERE event_time >= CAST($log_start AS TIMESTAMP)
       AND event_time < CAST($as_of AS TIMESTAMP) + INTERVAL 1 DAY
       AND customer_id IS NOT NULL
+      AND (list_contains($start_codes, event_kind)
+           OR list_contains($cancel_codes, event_kind)
+           OR list_contains($payment_failed_codes, event_kind))
 ),
 
--- Events with a role (codes listed under ignore have none).
-ev_roles AS (
-    SELECT * FROM ev WHERE role IS NOT NULL
+-- Payments that went through (a recovery or a renewal).
+paid AS (
+    SELECT customer_id, event_time, CAST(event_time AS DATE) AS event_date
+    FROM ({events_normalised}) AS raw
+    WHERE event_time >= CAST($log_start AS TIMESTAMP)
+      AND event_time < CAST($as_of AS TIMESTAMP) + INTERVAL 1 DAY
+      AND customer_id IS NOT NULL
+      AND (list_contains($renewal_codes, event_kind)
+           OR list_contains($payment_recovered_codes, event_kind))
 ),
 
--- The events that can be a mark, each distinct event row once.
-ev_marks AS (
-    SELECT DISTINCT * FROM ev_roles WHERE role IN ('start', 'cancel', 'payment_failed')
-),
-
--- Failed payments not recovered within the grace period: no later payment went through (a
--- recovery or a renewal) by the failure's date + $grace_days. A join on the customer, not a
--- window over every event of the log: failures are few, and only they need the look-ahead.
+-- Failed payments not recovered within the grace period: no later payment went through by the
+-- failure's date + $grace_days. A join on the customer, not a window over every event of the
+-- log: failures are few, and only they need the look-ahead.
 unrecovered AS (
     SELECT f.customer_id, f.event_time, f.event_date, f.plan, f.price
     FROM ev_marks AS f
@@ -64,35 +66,47 @@ unrecovered AS (
       AND f.event_date + $grace_days <= $as_of
       AND NOT EXISTS (
           SELECT 1
-          FROM ev_roles AS ok
+          FROM paid AS ok
           WHERE ok.customer_id = f.customer_id
-            AND ok.role IN ('payment_recovered', 'renewal')
             AND ok.event_time > f.event_time
             AND ok.event_date <= f.event_date + $grace_days
       )
 ),
 
 -- Customers who began before the log and are still active when it starts: their first event in the
--- log is not a start. They enter late, at their known signup date. The first event is found by
--- its time (an aggregate, not a sort of every event); when several events share that first
--- instant, a start among them counts as the first event, else the smallest plan and price.
+-- log (of any role; codes listed under ignore have none) is not a start. They enter late, at their
+-- known signup date. The first event is found by its time (an aggregate, not a sort of every
+-- event); when several events share that first instant, a start among them counts as the first
+-- event, else the smallest plan and price.
 first_time AS (
-    SELECT customer_id, MIN(event_time) AS first_time
-    FROM ev_roles
+    SELECT
+        customer_id,
+        MIN(event_time) AS first_time,
+        MIN(CASE WHEN list_contains($start_codes, event_kind) THEN event_time END) AS first_start
+    FROM ({events_normalised}) AS raw
+    WHERE event_time >= CAST($log_start AS TIMESTAMP)
+      AND event_time < CAST($as_of AS TIMESTAMP) + INTERVAL 1 DAY
+      AND customer_id IS NOT NULL
+      AND list_contains($role_codes, event_kind)
     GROUP BY customer_id
 ),
 
+late_entrants AS (
+    SELECT t.customer_id, t.first_time, c.signup_date
+    FROM first_time AS t
+    JOIN customer_info AS c ON c.customer_id = t.customer_id
+    WHERE c.signup_date < $log_start
+      AND (t.first_start IS NULL OR t.first_start > t.first_time)
+),
+
+-- Their plan and price: of the events at that first instant.
 first_in_log AS (
-    SELECT
-        e.customer_id,
-        CASE WHEN MAX(CASE WHEN e.role = 'start' THEN 1 ELSE 0 END) = 1
-             THEN 'start' ELSE 'other' END AS role,
-        MIN(e.plan) AS plan,
-        MIN(e.price) AS price
-    FROM ev_roles AS e
-    JOIN first_time AS t
-      ON t.customer_id = e.customer_id AND t.first_time = e.event_time
-    GROUP BY e.customer_id
+    SELECT l.customer_id, l.signup_date, MIN(e.plan) AS plan, MIN(e.price) AS price
+    FROM ({events_normalised}) AS e
+    JOIN late_entrants AS l
+      ON l.customer_id = e.customer_id AND l.first_time = e.event_time
+    WHERE list_contains($role_codes, e.event_kind)
+    GROUP BY l.customer_id, l.signup_date
 ),
 
 marks AS (
@@ -109,11 +123,9 @@ marks AS (
            'involuntary', CAST(NULL AS VARCHAR), FALSE
     FROM unrecovered
     UNION ALL
-    SELECT f.customer_id, CAST(c.signup_date AS TIMESTAMP), c.signup_date, 'S', f.plan, f.price,
+    SELECT customer_id, CAST(signup_date AS TIMESTAMP), signup_date, 'S', plan, price,
            CAST(NULL AS VARCHAR), CAST(NULL AS VARCHAR), TRUE
-    FROM first_in_log AS f
-    JOIN customer_info AS c ON c.customer_id = f.customer_id
-    WHERE c.signup_date < $log_start AND f.role <> 'start'
+    FROM first_in_log
 )
 
 -- The mark before each (the run rule in spells.sql keeps the first mark of each run).

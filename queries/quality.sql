@@ -1,8 +1,8 @@
 -- quality.sql: counts of the anomalies in the event log that churnlife handles by rule (README.md,
 -- "Data quality"), for the report's data-quality section.
 --
--- Parameters: $log_start, $as_of, $gap_days, $start_codes ... $plan_change_codes (as marks.sql and
--- spells.sql).
+-- Parameters: $log_start, $as_of (DATE), $gap_days (INT), $role_codes (LIST<VARCHAR>: every code
+-- with a role), as in marks.sql and spells.sql.
 -- Template slots
 --   {events_normalised}  queries/events_normalised.sql (user's columns renamed to roles)
 --   {customer_info}      queries/customers_from_table.sql or customers_from_events.sql
@@ -19,31 +19,6 @@ raw_events AS (
 
 customer_info AS (
     {customer_info}
-),
-
--- Events inside the window with a role, every column kept: DISTINCT on these rows drops
--- exact duplicates (events_normalised.sql keeps them) where a count depends on them.
-ev_roles AS (
-    SELECT * FROM (
-        SELECT
-            *,
-            CAST(event_time AS DATE) AS event_date,
-            CASE
-                WHEN list_contains($start_codes, event_kind)             THEN 'start'
-                WHEN list_contains($renewal_codes, event_kind)           THEN 'renewal'
-                WHEN list_contains($cancel_codes, event_kind)            THEN 'cancel'
-                WHEN list_contains($payment_failed_codes, event_kind)    THEN 'payment_failed'
-                WHEN list_contains($payment_recovered_codes, event_kind) THEN 'payment_recovered'
-                WHEN list_contains($price_change_codes, event_kind)      THEN 'price_change'
-                WHEN list_contains($plan_change_codes, event_kind)       THEN 'plan_change'
-            END AS role
-        -- its own scan of the log, not the raw_events CTE (which customer_info may read)
-        FROM ({events_normalised}) AS raw
-        WHERE event_time >= CAST($log_start AS TIMESTAMP)
-          AND event_time < CAST($as_of AS TIMESTAMP) + INTERVAL 1 DAY
-          AND customer_id IS NOT NULL
-    ) AS e
-    WHERE role IS NOT NULL
 ),
 
 -- The marks spells.sql keeps, and for each kept start the end before it: a start less than
@@ -77,16 +52,29 @@ mark_counts AS (
     FROM {marks}
 ),
 
+-- Events dated before the customer's signup date (inside the window, with a role), each distinct
+-- event row once; and the customers with an event (inside the window, with a role). Each reads the
+-- log in its own scan (a CTE read twice is materialised, a copy of every event).
 event_counts AS (
     SELECT
         (SELECT COUNT(*) FROM (
             SELECT DISTINCT e.*
-            FROM ev_roles AS e
+            FROM ({events_normalised}) AS e
             JOIN customer_info AS c ON c.customer_id = e.customer_id
-            WHERE e.event_date < c.signup_date
+            WHERE e.event_time >= CAST($log_start AS TIMESTAMP)
+              AND e.event_time < CAST($as_of AS TIMESTAMP) + INTERVAL 1 DAY
+              AND list_contains($role_codes, e.event_kind)
+              AND CAST(e.event_time AS DATE) < c.signup_date
         ) AS b)                                                        AS n_before_signup,
         (SELECT COUNT(*)
-         FROM (SELECT DISTINCT customer_id FROM ev_roles) AS t
+         FROM (
+             SELECT DISTINCT customer_id
+             FROM ({events_normalised}) AS e
+             WHERE event_time >= CAST($log_start AS TIMESTAMP)
+               AND event_time < CAST($as_of AS TIMESTAMP) + INTERVAL 1 DAY
+               AND customer_id IS NOT NULL
+               AND list_contains($role_codes, event_kind)
+         ) AS t
          LEFT JOIN (SELECT DISTINCT customer_id FROM {spells}) AS s
            ON s.customer_id = t.customer_id
          WHERE s.customer_id IS NULL)                                  AS n_customers_without_spell
