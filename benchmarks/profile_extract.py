@@ -29,6 +29,7 @@ from typing import Any
 from churnlife import extract as extract_module
 from churnlife import source as source_module
 from churnlife.config import load_config
+from churnlife.errors import UserError
 from churnlife.extract import read_query
 
 
@@ -67,14 +68,17 @@ class Recorder:
             con.execute(f"PRAGMA profiling_output = '{path}'").fetchall()
         t0 = time.perf_counter()
         result = None
+        failed = True
         try:
             result = call()
+            failed = False
             return result
         finally:
             seconds = time.perf_counter() - t0
             if self.operators:
                 con.execute("PRAGMA disable_profiling").fetchall()
-            row: dict[str, Any] = {"query": self.label(sql), "kind": kind, "seconds": seconds}
+            row: dict[str, Any] = {"query": self.label(sql), "kind": kind, "seconds": seconds,
+                                   "failed": failed}
             if kind == "query" and result is not None:
                 row["rows"] = result.height
             if path is not None:
@@ -137,7 +141,7 @@ def report(recorder: Recorder, total: float, top: int) -> None:
         by_query[r["query"]] = by_query.get(r["query"], 0.0) + r["seconds"]
     print(f"{'query':<22} {'kind':<6} {'wall s':>8} {'rows':>10}")
     for r in recorder.rows:
-        rows = f"{r['rows']:,}" if "rows" in r else ""
+        rows = "FAILED" if r["failed"] else f"{r['rows']:,}" if "rows" in r else ""
         print(f"{r['query']:<22} {r['kind']:<6} {r['seconds']:>8.2f} {rows:>10}")
         prof = r.get("profile")
         if prof and r["seconds"] >= 0.05:
@@ -176,12 +180,16 @@ def main(argv: list[str] | None = None) -> int:
     info = json.loads((args.log / "log.json").read_text("utf-8"))
     print(f"log {args.log}: {info['customers']:,} customers, {info['events']:,} events")
     source = source_module.open_source(config)
+    t0 = time.perf_counter()
     try:
-        t0 = time.perf_counter()
         ex = extract_module.run_extract(config, source)
-        total = time.perf_counter() - t0
+    except UserError as err:  # e.g. out of memory under CHURNLIFE_MEMORY_LIMIT: say where
+        report(recorder, time.perf_counter() - t0, args.top)
+        print(f"the extract stopped: {err}")
+        return 1
     finally:
         source.close()
+    total = time.perf_counter() - t0
     print(f"{ex.summary['n_spells']:,} spells, {ex.counts.height} count rows")
     report(recorder, total, args.top)
     return 0
