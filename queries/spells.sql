@@ -94,78 +94,83 @@ spells AS (
         c.channel,
         CASE WHEN s.late_entry THEN CAST($log_start AS DATE) ELSE s.start_date END AS entry_date,
         -- exit instant: the end of the last active day (end date, or the as-of date if active)
-        CAST(COALESCE(s.end_date, CAST($as_of AS DATE)) + 1 AS DATE) AS exit_date
+        CAST(COALESCE(s.end_date, CAST($as_of AS DATE)) + 1 AS DATE) AS exit_date,
+        -- the end of the window: the as-of date's last moment
+        CAST(CAST($as_of AS DATE) + 1 AS DATE) AS horizon_date
     FROM (SELECT * FROM spell_rows WHERE rn = 1) AS s
     LEFT JOIN customer_info AS c ON c.customer_id = s.customer_id
 ),
 
--- Tenure arithmetic, defined once for both instants (entry and exit) of every spell.
+-- Tenure arithmetic at the three instants of every spell: entry, exit, and the end of the window
+-- (the as-of date's last moment), one column each (the same expression three times: a spell read
+-- once, not a union of its instants that would materialise the spells and group them again).
 -- Months: complete calendar months from the start (anniversaries on the start's day of month,
 -- clamped to month end), plus the elapsed share of the current month-step.
-instants AS (
-    SELECT customer_id, spell_number, start_date, plan, 'entry' AS which, entry_date AS at_date
-    FROM spells
-    UNION ALL
-    SELECT customer_id, spell_number, start_date, plan, 'exit', exit_date
-    FROM spells
-    UNION ALL
-    -- the end of the window: the as-of date's last moment
-    SELECT customer_id, spell_number, start_date, plan, 'horizon',
-           CAST(CAST($as_of AS DATE) + 1 AS DATE)
-    FROM spells
-),
-
-instants_k0 AS (
+spells_k0 AS (
     SELECT
         *,
-        CAST(12 * (EXTRACT(YEAR FROM at_date) - EXTRACT(YEAR FROM start_date))
-             + EXTRACT(MONTH FROM at_date) - EXTRACT(MONTH FROM start_date) AS INTEGER) AS k0
-    FROM instants
+        CAST(12 * (EXTRACT(YEAR FROM entry_date) - EXTRACT(YEAR FROM start_date))
+             + EXTRACT(MONTH FROM entry_date) - EXTRACT(MONTH FROM start_date) AS INTEGER) AS k0_entry,
+        CAST(12 * (EXTRACT(YEAR FROM exit_date) - EXTRACT(YEAR FROM start_date))
+             + EXTRACT(MONTH FROM exit_date) - EXTRACT(MONTH FROM start_date) AS INTEGER) AS k0_exit,
+        CAST(12 * (EXTRACT(YEAR FROM horizon_date) - EXTRACT(YEAR FROM start_date))
+             + EXTRACT(MONTH FROM horizon_date) - EXTRACT(MONTH FROM start_date) AS INTEGER) AS k0_horizon
+    FROM spells
 ),
 
-instants_k AS (
+spells_k AS (
     SELECT
         *,
-        k0 - CASE WHEN CAST(start_date + to_months(k0) AS DATE) > at_date THEN 1 ELSE 0 END AS k
-    FROM instants_k0
+        k0_entry - CASE WHEN CAST(start_date + to_months(k0_entry) AS DATE) > entry_date THEN 1 ELSE 0 END
+            AS k_entry,
+        k0_exit - CASE WHEN CAST(start_date + to_months(k0_exit) AS DATE) > exit_date THEN 1 ELSE 0 END
+            AS k_exit,
+        k0_horizon - CASE WHEN CAST(start_date + to_months(k0_horizon) AS DATE) > horizon_date THEN 1 ELSE 0 END
+            AS k_horizon
+    FROM spells_k0
 ),
 
-instants_units AS (
+spells_units AS (
     SELECT
-        customer_id,
-        spell_number,
-        which,
-        CAST(at_date - start_date AS DOUBLE) AS elapsed_days,
-        k + CAST(at_date - CAST(start_date + to_months(k) AS DATE) AS DOUBLE)
-              / CAST(CAST(start_date + to_months(k + 1) AS DATE)
-                     - CAST(start_date + to_months(k) AS DATE) AS DOUBLE) AS elapsed_months,
+        *,
+        CAST(entry_date - start_date AS DOUBLE) AS days_entry,
+        k_entry + CAST(entry_date - CAST(start_date + to_months(k_entry) AS DATE) AS DOUBLE)
+              / CAST(CAST(start_date + to_months(k_entry + 1) AS DATE)
+                     - CAST(start_date + to_months(k_entry) AS DATE) AS DOUBLE) AS months_entry,
+        CAST(exit_date - start_date AS DOUBLE) AS days_exit,
+        k_exit + CAST(exit_date - CAST(start_date + to_months(k_exit) AS DATE) AS DOUBLE)
+              / CAST(CAST(start_date + to_months(k_exit + 1) AS DATE)
+                     - CAST(start_date + to_months(k_exit) AS DATE) AS DOUBLE) AS months_exit,
+        CAST(horizon_date - start_date AS DOUBLE) AS days_horizon,
+        k_horizon + CAST(horizon_date - CAST(start_date + to_months(k_horizon) AS DATE) AS DOUBLE)
+              / CAST(CAST(start_date + to_months(k_horizon + 1) AS DATE)
+                     - CAST(start_date + to_months(k_horizon) AS DATE) AS DOUBLE) AS months_horizon,
         {period_months} AS period_months
-    FROM instants_k
-),
-
-instants_in_unit AS (
-    SELECT
-        customer_id,
-        spell_number,
-        which,
-        CASE '{unit}'
-            WHEN 'days'    THEN elapsed_days
-            WHEN 'weeks'   THEN elapsed_days / 7.0
-            WHEN 'months'  THEN elapsed_months
-            WHEN 'periods' THEN elapsed_months / period_months
-        END AS elapsed
-    FROM instants_units
+    FROM spells_k
 ),
 
 exact AS (
     SELECT
-        customer_id,
-        spell_number,
-        MAX(CASE WHEN which = 'entry' THEN elapsed END) AS entry_exact,
-        MAX(CASE WHEN which = 'exit'  THEN elapsed END) AS exit_exact,
-        MAX(CASE WHEN which = 'horizon' THEN elapsed END) AS horizon_exact
-    FROM instants_in_unit
-    GROUP BY customer_id, spell_number
+        *,
+        CASE '{unit}'
+            WHEN 'days'    THEN days_entry
+            WHEN 'weeks'   THEN days_entry / 7.0
+            WHEN 'months'  THEN months_entry
+            WHEN 'periods' THEN months_entry / period_months
+        END AS entry_exact,
+        CASE '{unit}'
+            WHEN 'days'    THEN days_exit
+            WHEN 'weeks'   THEN days_exit / 7.0
+            WHEN 'months'  THEN months_exit
+            WHEN 'periods' THEN months_exit / period_months
+        END AS exit_exact,
+        CASE '{unit}'
+            WHEN 'days'    THEN days_horizon
+            WHEN 'weeks'   THEN days_horizon / 7.0
+            WHEN 'months'  THEN months_horizon
+            WHEN 'periods' THEN months_horizon / period_months
+        END AS horizon_exact
+    FROM spells_units
 )
 
 SELECT
@@ -177,17 +182,17 @@ SELECT
     s.cause,
     s.cancel_reason,
     s.late_entry,
-    e.entry_exact,
-    e.exit_exact,
+    s.entry_exact,
+    s.exit_exact,
     -- Only whole units of the window are counted: a churn inside the unit the as-of date cuts
     -- short is not counted (the spell is censored at the last whole unit), since customers still
     -- active in that unit cannot be counted as surviving it either.
-    s.churned AND CEIL(e.exit_exact) <= FLOOR(e.horizon_exact) AS churn_counted,
-    LEAST(e.exit_exact, FLOOR(e.horizon_exact))    AS counted_exit_exact,
-    CAST(FLOOR(e.entry_exact) AS INTEGER)         AS entry_t,
-    CAST(CASE WHEN s.churned AND CEIL(e.exit_exact) <= FLOOR(e.horizon_exact)
-              THEN CEIL(e.exit_exact)
-              ELSE FLOOR(LEAST(e.exit_exact, FLOOR(e.horizon_exact))) END AS INTEGER)
+    s.churned AND CEIL(s.exit_exact) <= FLOOR(s.horizon_exact) AS churn_counted,
+    LEAST(s.exit_exact, FLOOR(s.horizon_exact))    AS counted_exit_exact,
+    CAST(FLOOR(s.entry_exact) AS INTEGER)         AS entry_t,
+    CAST(CASE WHEN s.churned AND CEIL(s.exit_exact) <= FLOOR(s.horizon_exact)
+              THEN CEIL(s.exit_exact)
+              ELSE FLOOR(LEAST(s.exit_exact, FLOOR(s.horizon_exact))) END AS INTEGER)
                                                   AS exit_t,
     strftime(s.start_date, '%Y-%m')               AS signup_month,
     CAST(EXTRACT(YEAR FROM s.start_date) AS VARCHAR) || '-Q'
@@ -197,6 +202,4 @@ SELECT
     s.price,
     {price_band}                                  AS price_band,
     s.channel
-FROM spells AS s
-JOIN exact AS e
-  ON e.customer_id = s.customer_id AND e.spell_number = s.spell_number
+FROM exact AS s
