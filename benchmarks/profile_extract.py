@@ -8,7 +8,7 @@ time as DuckDB reports it: summed over threads), with the query's peak buffer me
 spilled to disk. Profiling adds its own overhead: compare wall times from runs without it.
 
     python benchmarks/scale_log.py --customers 1000000 --out /tmp/log-1m
-    python benchmarks/profile_extract.py /tmp/log-1m
+    python benchmarks/profile_extract.py /tmp/log-1m --bare
     CHURNLIFE_MEMORY_LIMIT=200MB python benchmarks/profile_extract.py /tmp/log-1m --operators
 """
 
@@ -168,6 +168,9 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--operators", action="store_true",
                     help="profile each query with DuckDB's profiler and list its slowest operators")
     ap.add_argument("--top", type=int, default=8, help="operators listed per query")
+    ap.add_argument("--bare", action="store_true",
+                    help="also time run.py's bare scan-and-group-by of the same log (the "
+                         "extract benchmark's reference) and print the ratio")
     args = ap.parse_args(argv)
     config_path = args.log / "churnlife.toml"
     if not config_path.is_file():
@@ -192,6 +195,12 @@ def main(argv: list[str] | None = None) -> int:
     total = time.perf_counter() - t0
     print(f"{ex.summary['n_spells']:,} spells, {ex.counts.height} count rows")
     report(recorder, total, args.top)
+    if args.bare:
+        from run import bare_scan  # benchmarks/run.py, beside this script
+
+        bare = min(bare_scan(args.log), bare_scan(args.log))
+        print(f"bare scan-and-group-by {bare:.2f} s (best of 2, right after the extract): "
+              f"extract ÷ bare scan = {total / bare:.1f}")
     return 0
 
 
