@@ -310,7 +310,8 @@ def bench_extract(n: int) -> Row:
 
 # Which query file a SQL text came from: a name each one alone contains.
 QUERY_MARKS = (
-    ("spells.sql (staged)", "instants_k0"), ("quality.sql", "mark_counts"),
+    ("spells.sql (staged)", "instants_k0"), ("marks.sql (staged)", "first_in_log"),
+    ("quality.sql", "mark_counts"),
     ("summary.sql", "all_rows"), ("episodes.sql", "rise_k0"), ("counts.sql", "full_step"),
     ("incomplete_rows.sql", "n_incomplete"), ("unknown_codes.sql", "n_events"),
 )

@@ -78,6 +78,7 @@ def parameters(config: Config) -> dict[str, Any]:
         "grace_days": config.grace_days,
         "gap_days": config.reactivation_gap_days,
         "known_codes": known,
+        "role_codes": [c for role in codes if role != "ignore" for c in codes[role]] or [""],
         **{f"{role}_codes": list(codes[role]) or [""] for role in codes if role != "ignore"},
     }
 
@@ -205,18 +206,56 @@ def customer_info_sql(config: Config, source: Source) -> str:
     )
 
 
-def spells_sql(config: Config, source: Source) -> str:
-    """The complete spells query for this config and engine."""
+def marks_sql(config: Config, source: Source) -> str:
+    """The boundary marks query for this config and engine (queries/marks.sql)."""
+    events_norm = events_normalised_sql(config, source)
+    return fill(
+        read_query("marks"),
+        {"events_normalised": events_norm, "customer_info": customer_info_sql(config, source)},
+    )
+
+
+def spells_sql(config: Config, source: Source, marks_relation: str) -> str:
+    """The spells query for this config and engine, reading the staged marks."""
     events_norm = events_normalised_sql(config, source)
     customer_info = customer_info_sql(config, source)
     return fill(
         read_query("spells"),
         {
+            "marks": marks_relation,
             "events_normalised": events_norm,
             "customer_info": customer_info,
             "period_months": _period_months_expr(config),
             "price_band": _price_band_expr(config),
             "unit": config.tenure_unit,
+        },
+    )
+
+
+def stage_marks(config: Config, source: Source, params: dict[str, Any]) -> str:
+    """Stage the boundary marks (queries/marks.sql); return the relation."""
+    return source.stage("marks", marks_sql(config, source), params)
+
+
+def stage_spells(
+    config: Config, source: Source, params: dict[str, Any], marks_relation: str | None = None
+) -> str:
+    """Stage the marks (unless given), then the spells made from them; return the spells
+    relation."""
+    marks = marks_relation or stage_marks(config, source, params)
+    return source.stage("spells", spells_sql(config, source, marks), params)
+
+
+def summary_sql(config: Config, source: Source, spells_relation: str) -> str:
+    """The one-row data summary (queries/summary.sql) over the log and the staged spells."""
+    return fill(
+        read_query("summary"),
+        {
+            "events": source.relation("events"),
+            "events_normalised": events_normalised_sql(config, source),
+            "spells": spells_relation,
+            "customer_id": _col_or_null(config, source, "customer_id"),
+            "event_time": _col_or_null(config, source, "event_time"),
         },
     )
 
@@ -260,25 +299,16 @@ def run_extract(config: Config, source: Source) -> Extract:
     params = parameters(config)
     checked = quality.check_log(config, source, params)  # stops on what cannot be handled
     _check_codes(config, source, params)
-    spells_rel = source.stage("spells", spells_sql(config, source), params)
+    marks_rel = stage_marks(config, source, params)
+    spells_rel = stage_spells(config, source, params, marks_rel)
     counts = count_spells(source, spells_rel, config.cohorts)
-    summary_sql = fill(
-        read_query("summary"),
-        {
-            "events": source.relation("events"),
-            "events_normalised": events_normalised_sql(config, source),
-            "spells": spells_rel,
-            "customer_id": _col_or_null(config, source, "customer_id"),
-            "event_time": _col_or_null(config, source, "event_time"),
-        },
-    )
-    summary = source.query(summary_sql, params).to_dicts()[0]
+    summary = source.query(summary_sql(config, source, spells_rel), params).to_dicts()[0]
     summary["n_duplicate_rows"] = int(summary["n_rows"] or 0) - int(summary["n_distinct"] or 0)
     summary.update(checked)
     if summary["n_spells"]:
         summary.update(
             quality.count_anomalies(
-                config, source, params, spells_rel, customer_info_sql(config, source)
+                config, source, params, marks_rel, spells_rel, customer_info_sql(config, source)
             )
         )
     if not summary["n_spells"]:

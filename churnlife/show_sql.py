@@ -16,12 +16,14 @@ from churnlife.extract import (
     _check_columns,
     counts_sql,
     customer_info_sql,
-    events_normalised_sql,
     fill,
+    marks_sql,
     parameters,
     read_query,
     spells_sql,
+    summary_sql,
 )
+from churnlife.quality import anomalies_sql
 from churnlife.source import Source
 
 
@@ -36,30 +38,19 @@ def extract_statements(config: Config, source: Source) -> list[tuple[str, Statem
     )
     out.append(("event kinds the config does not map (the run stops on any)",
                 source.statement(unknown, params)))
-    spells_rel, kept = source.plan_stage("spells", spells_sql(config, source), params)
+    marks_rel, kept = source.plan_stage("marks", marks_sql(config, source), params)
+    if kept is not None:
+        out.append((f"each customer's spell boundary marks, kept as {marks_rel}", kept))
+    spells = spells_sql(config, source, marks_rel)
+    spells_rel, kept = source.plan_stage("spells", spells, params)
     if kept is not None:
         out.append((f"the spells, one row per customer spell, kept as {spells_rel}", kept))
     out.append(("survival counts per cohort and tenure (the result that leaves the engine)",
                 source.statement(counts_sql(spells_rel, config.cohorts), params)))
-    customer_id = config.columns["customer_id"] or ""
-    summary = fill(
-        read_query("summary"),
-        {
-            "events": source.relation("events"),
-            "events_normalised": events_normalised_sql(config, source),
-            "spells": spells_rel,
-            "customer_id": source.quote(customer_id),
-            "event_time": source.quote(config.columns["event_time"] or ""),
-        },
-    )
+    summary = summary_sql(config, source, spells_rel)
     out.append(("the data summary (one row)", source.statement(summary, params)))
-    quality = fill(
-        read_query("quality"),
-        {
-            "events_normalised": events_normalised_sql(config, source),
-            "customer_info": customer_info_sql(config, source),
-            "spells": spells_rel,
-        },
+    quality = anomalies_sql(
+        config, source, marks_rel, spells_rel, customer_info_sql(config, source)
     )
     out.append(("what the tenure rules handled (one row of counts)",
                 source.statement(quality, params)))

@@ -1,11 +1,11 @@
--- spells.sql: one row per customer subscription spell, from the event log.
+-- spells.sql: one row per customer subscription spell, from the boundary marks of the event log
+-- (queries/marks.sql: starts, cancels, unrecovered failed payments, late entrants).
 --
 -- Parameters
 --   $log_start, $as_of        DATE   the window: the log's first day, and the censoring date
---   $grace_days               INT    a failed payment not recovered within this many days ends the spell
 --   $gap_days                 INT    a restart less than this many days after an end continues the spell
---   $start_codes ... $plan_change_codes   LIST<VARCHAR>  event kinds for each role
 -- Template slots
+--   {marks}              the boundary marks queries/marks.sql staged from the same log
 --   {events_normalised}  queries/events_normalised.sql (user's columns renamed to roles)
 --   {customer_info}      queries/customers_from_table.sql or customers_from_events.sql
 --   {period_months}      SQL expression: billing period length in months of column `plan`
@@ -24,114 +24,10 @@ customer_info AS (
     {customer_info}
 ),
 
--- Events inside the window, with their role. Events after the as-of date are ignored.
-ev AS (
-    SELECT
-        customer_id,
-        event_time,
-        CAST(event_time AS DATE) AS event_date,
-        plan,
-        price,
-        cancel_reason,
-        CASE
-            WHEN list_contains($start_codes, event_kind)             THEN 'start'
-            WHEN list_contains($renewal_codes, event_kind)           THEN 'renewal'
-            WHEN list_contains($cancel_codes, event_kind)            THEN 'cancel'
-            WHEN list_contains($payment_failed_codes, event_kind)    THEN 'payment_failed'
-            WHEN list_contains($payment_recovered_codes, event_kind) THEN 'payment_recovered'
-            WHEN list_contains($price_change_codes, event_kind)      THEN 'price_change'
-            WHEN list_contains($plan_change_codes, event_kind)       THEN 'plan_change'
-        END AS role
-    -- its own scan of the log, not the raw_events CTE (which customer_info may read): a CTE
-    -- read by several queries is materialised, a copy of every event
-    FROM ({events_normalised}) AS raw
-    WHERE event_time >= CAST($log_start AS TIMESTAMP)
-      AND event_time < CAST($as_of AS TIMESTAMP) + INTERVAL 1 DAY
-      AND customer_id IS NOT NULL
-),
-
--- Events with a role (codes listed under ignore have none).
-ev_roles AS (
-    SELECT * FROM ev WHERE role IS NOT NULL
-),
-
--- Failed payments not recovered within the grace period: no later payment went through (a
--- recovery or a renewal) by the failure's date + $grace_days. A join on the customer, not a
--- window over every event of the log: failures are few, and only they need the look-ahead.
-unrecovered AS (
-    SELECT f.customer_id, f.event_time, f.event_date, f.plan, f.price
-    FROM ev_roles AS f
-    WHERE f.role = 'payment_failed'
-      AND f.event_date + $grace_days <= $as_of
-      AND NOT EXISTS (
-          SELECT 1
-          FROM ev_roles AS ok
-          WHERE ok.customer_id = f.customer_id
-            AND ok.role IN ('payment_recovered', 'renewal')
-            AND ok.event_time > f.event_time
-            AND ok.event_date <= f.event_date + $grace_days
-      )
-),
-
--- Customers who began before the log and are still active when it starts: their first event in the
--- log is not a start. They enter late, at their known signup date. The first event is found by
--- its time (an aggregate, not a sort of every event); when several events share that first
--- instant, a start among them counts as the first event, else the smallest plan and price.
-first_time AS (
-    SELECT customer_id, MIN(event_time) AS first_time
-    FROM ev_roles
-    GROUP BY customer_id
-),
-
-first_in_log AS (
-    SELECT
-        e.customer_id,
-        CASE WHEN MAX(CASE WHEN e.role = 'start' THEN 1 ELSE 0 END) = 1
-             THEN 'start' ELSE 'other' END AS role,
-        MIN(e.plan) AS plan,
-        MIN(e.price) AS price
-    FROM ev_roles AS e
-    JOIN first_time AS t
-      ON t.customer_id = e.customer_id AND t.first_time = e.event_time
-    GROUP BY e.customer_id
-),
-
--- Spell boundary marks: S = a start, T = an end (a cancel, or a failed payment that was not
--- recovered within the grace period and whose grace period is over by the as-of date).
-marks AS (
-    SELECT customer_id, event_time, event_date AS mark_date, 'S' AS mark, plan, price,
-           CAST(NULL AS VARCHAR) AS cause, CAST(NULL AS VARCHAR) AS cancel_reason,
-           FALSE AS late_entry
-    FROM ev_roles WHERE role = 'start'
-    UNION ALL
-    SELECT customer_id, event_time, event_date, 'T', plan, price,
-           'voluntary', cancel_reason, FALSE
-    FROM ev_roles WHERE role = 'cancel'
-    UNION ALL
-    SELECT customer_id, event_time, event_date, 'T', plan, price,
-           'involuntary', CAST(NULL AS VARCHAR), FALSE
-    FROM unrecovered
-    UNION ALL
-    SELECT f.customer_id, CAST(c.signup_date AS TIMESTAMP), c.signup_date, 'S', f.plan, f.price,
-           CAST(NULL AS VARCHAR), CAST(NULL AS VARCHAR), TRUE
-    FROM first_in_log AS f
-    JOIN customer_info AS c ON c.customer_id = f.customer_id
-    WHERE c.signup_date < $log_start AND f.role <> 'start'
-),
-
 -- Keep the first mark of each run: S S T T S T -> S T S T. A second start inside an open spell and
--- an end with no open spell are dropped (summary.sql counts them).
-marks_ordered AS (
-    SELECT
-        *,
-        LAG(mark) OVER (
-            PARTITION BY customer_id ORDER BY event_time, mark
-        ) AS prev_mark
-    FROM marks
-),
-
+-- an end with no open spell are dropped (quality.sql counts them).
 marks_kept AS (
-    SELECT * FROM marks_ordered
+    SELECT * FROM {marks}
     WHERE (mark = 'S' AND (prev_mark IS NULL OR prev_mark = 'T'))
        OR (mark = 'T' AND prev_mark = 'S')
 ),
@@ -198,78 +94,83 @@ spells AS (
         c.channel,
         CASE WHEN s.late_entry THEN CAST($log_start AS DATE) ELSE s.start_date END AS entry_date,
         -- exit instant: the end of the last active day (end date, or the as-of date if active)
-        CAST(COALESCE(s.end_date, CAST($as_of AS DATE)) + 1 AS DATE) AS exit_date
+        CAST(COALESCE(s.end_date, CAST($as_of AS DATE)) + 1 AS DATE) AS exit_date,
+        -- the end of the window: the as-of date's last moment
+        CAST(CAST($as_of AS DATE) + 1 AS DATE) AS horizon_date
     FROM (SELECT * FROM spell_rows WHERE rn = 1) AS s
     LEFT JOIN customer_info AS c ON c.customer_id = s.customer_id
 ),
 
--- Tenure arithmetic, defined once for both instants (entry and exit) of every spell.
+-- Tenure arithmetic at the three instants of every spell: entry, exit, and the end of the window
+-- (the as-of date's last moment), one column each (the same expression three times: a spell read
+-- once, not a union of its instants that would materialise the spells and group them again).
 -- Months: complete calendar months from the start (anniversaries on the start's day of month,
 -- clamped to month end), plus the elapsed share of the current month-step.
-instants AS (
-    SELECT customer_id, spell_number, start_date, plan, 'entry' AS which, entry_date AS at_date
-    FROM spells
-    UNION ALL
-    SELECT customer_id, spell_number, start_date, plan, 'exit', exit_date
-    FROM spells
-    UNION ALL
-    -- the end of the window: the as-of date's last moment
-    SELECT customer_id, spell_number, start_date, plan, 'horizon',
-           CAST(CAST($as_of AS DATE) + 1 AS DATE)
-    FROM spells
-),
-
-instants_k0 AS (
+spells_k0 AS (
     SELECT
         *,
-        CAST(12 * (EXTRACT(YEAR FROM at_date) - EXTRACT(YEAR FROM start_date))
-             + EXTRACT(MONTH FROM at_date) - EXTRACT(MONTH FROM start_date) AS INTEGER) AS k0
-    FROM instants
+        CAST(12 * (EXTRACT(YEAR FROM entry_date) - EXTRACT(YEAR FROM start_date))
+             + EXTRACT(MONTH FROM entry_date) - EXTRACT(MONTH FROM start_date) AS INTEGER) AS k0_entry,
+        CAST(12 * (EXTRACT(YEAR FROM exit_date) - EXTRACT(YEAR FROM start_date))
+             + EXTRACT(MONTH FROM exit_date) - EXTRACT(MONTH FROM start_date) AS INTEGER) AS k0_exit,
+        CAST(12 * (EXTRACT(YEAR FROM horizon_date) - EXTRACT(YEAR FROM start_date))
+             + EXTRACT(MONTH FROM horizon_date) - EXTRACT(MONTH FROM start_date) AS INTEGER) AS k0_horizon
+    FROM spells
 ),
 
-instants_k AS (
+spells_k AS (
     SELECT
         *,
-        k0 - CASE WHEN CAST(start_date + to_months(k0) AS DATE) > at_date THEN 1 ELSE 0 END AS k
-    FROM instants_k0
+        k0_entry - CASE WHEN CAST(start_date + to_months(k0_entry) AS DATE) > entry_date THEN 1 ELSE 0 END
+            AS k_entry,
+        k0_exit - CASE WHEN CAST(start_date + to_months(k0_exit) AS DATE) > exit_date THEN 1 ELSE 0 END
+            AS k_exit,
+        k0_horizon - CASE WHEN CAST(start_date + to_months(k0_horizon) AS DATE) > horizon_date THEN 1 ELSE 0 END
+            AS k_horizon
+    FROM spells_k0
 ),
 
-instants_units AS (
+spells_units AS (
     SELECT
-        customer_id,
-        spell_number,
-        which,
-        CAST(date_diff('day', start_date, at_date) AS DOUBLE) AS elapsed_days,
-        k + CAST(date_diff('day', CAST(start_date + to_months(k) AS DATE), at_date) AS DOUBLE)
-              / CAST(date_diff('day', CAST(start_date + to_months(k) AS DATE),
-                                       CAST(start_date + to_months(k + 1) AS DATE)) AS DOUBLE) AS elapsed_months,
+        *,
+        CAST(date_diff('day', start_date, entry_date) AS DOUBLE) AS days_entry,
+        k_entry + CAST(date_diff('day', CAST(start_date + to_months(k_entry) AS DATE), entry_date) AS DOUBLE)
+              / CAST(date_diff('day', CAST(start_date + to_months(k_entry) AS DATE),
+                                       CAST(start_date + to_months(k_entry + 1) AS DATE)) AS DOUBLE) AS months_entry,
+        CAST(date_diff('day', start_date, exit_date) AS DOUBLE) AS days_exit,
+        k_exit + CAST(date_diff('day', CAST(start_date + to_months(k_exit) AS DATE), exit_date) AS DOUBLE)
+              / CAST(date_diff('day', CAST(start_date + to_months(k_exit) AS DATE),
+                                       CAST(start_date + to_months(k_exit + 1) AS DATE)) AS DOUBLE) AS months_exit,
+        CAST(date_diff('day', start_date, horizon_date) AS DOUBLE) AS days_horizon,
+        k_horizon + CAST(date_diff('day', CAST(start_date + to_months(k_horizon) AS DATE), horizon_date) AS DOUBLE)
+              / CAST(date_diff('day', CAST(start_date + to_months(k_horizon) AS DATE),
+                                       CAST(start_date + to_months(k_horizon + 1) AS DATE)) AS DOUBLE) AS months_horizon,
         {period_months} AS period_months
-    FROM instants_k
-),
-
-instants_in_unit AS (
-    SELECT
-        customer_id,
-        spell_number,
-        which,
-        CASE '{unit}'
-            WHEN 'days'    THEN elapsed_days
-            WHEN 'weeks'   THEN elapsed_days / 7.0
-            WHEN 'months'  THEN elapsed_months
-            WHEN 'periods' THEN elapsed_months / period_months
-        END AS elapsed
-    FROM instants_units
+    FROM spells_k
 ),
 
 exact AS (
     SELECT
-        customer_id,
-        spell_number,
-        MAX(CASE WHEN which = 'entry' THEN elapsed END) AS entry_exact,
-        MAX(CASE WHEN which = 'exit'  THEN elapsed END) AS exit_exact,
-        MAX(CASE WHEN which = 'horizon' THEN elapsed END) AS horizon_exact
-    FROM instants_in_unit
-    GROUP BY customer_id, spell_number
+        *,
+        CASE '{unit}'
+            WHEN 'days'    THEN days_entry
+            WHEN 'weeks'   THEN days_entry / 7.0
+            WHEN 'months'  THEN months_entry
+            WHEN 'periods' THEN months_entry / period_months
+        END AS entry_exact,
+        CASE '{unit}'
+            WHEN 'days'    THEN days_exit
+            WHEN 'weeks'   THEN days_exit / 7.0
+            WHEN 'months'  THEN months_exit
+            WHEN 'periods' THEN months_exit / period_months
+        END AS exit_exact,
+        CASE '{unit}'
+            WHEN 'days'    THEN days_horizon
+            WHEN 'weeks'   THEN days_horizon / 7.0
+            WHEN 'months'  THEN months_horizon
+            WHEN 'periods' THEN months_horizon / period_months
+        END AS horizon_exact
+    FROM spells_units
 )
 
 SELECT
@@ -281,17 +182,17 @@ SELECT
     s.cause,
     s.cancel_reason,
     s.late_entry,
-    e.entry_exact,
-    e.exit_exact,
+    s.entry_exact,
+    s.exit_exact,
     -- Only whole units of the window are counted: a churn inside the unit the as-of date cuts
     -- short is not counted (the spell is censored at the last whole unit), since customers still
     -- active in that unit cannot be counted as surviving it either.
-    s.churned AND CEIL(e.exit_exact) <= FLOOR(e.horizon_exact) AS churn_counted,
-    LEAST(e.exit_exact, FLOOR(e.horizon_exact))    AS counted_exit_exact,
-    CAST(FLOOR(e.entry_exact) AS INTEGER)         AS entry_t,
-    CAST(CASE WHEN s.churned AND CEIL(e.exit_exact) <= FLOOR(e.horizon_exact)
-              THEN CEIL(e.exit_exact)
-              ELSE FLOOR(LEAST(e.exit_exact, FLOOR(e.horizon_exact))) END AS INTEGER)
+    s.churned AND CEIL(s.exit_exact) <= FLOOR(s.horizon_exact) AS churn_counted,
+    LEAST(s.exit_exact, FLOOR(s.horizon_exact))    AS counted_exit_exact,
+    CAST(FLOOR(s.entry_exact) AS INTEGER)         AS entry_t,
+    CAST(CASE WHEN s.churned AND CEIL(s.exit_exact) <= FLOOR(s.horizon_exact)
+              THEN CEIL(s.exit_exact)
+              ELSE FLOOR(LEAST(s.exit_exact, FLOOR(s.horizon_exact))) END AS INTEGER)
                                                   AS exit_t,
     strftime(s.start_date, '%Y-%m')               AS signup_month,
     CAST(EXTRACT(YEAR FROM s.start_date) AS VARCHAR) || '-Q'
@@ -301,6 +202,4 @@ SELECT
     s.price,
     {price_band}                                  AS price_band,
     s.channel
-FROM spells AS s
-JOIN exact AS e
-  ON e.customer_id = s.customer_id AND e.spell_number = s.spell_number
+FROM exact AS s

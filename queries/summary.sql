@@ -2,10 +2,6 @@
 -- Template slots: {events} (the user's table), {events_normalised}, {spells} (spells relation),
 -- {customer_id}, {event_time} (quoted columns). Parameters: $log_start, $as_of (DATE).
 WITH
--- Exact duplicate rows count once (events_normalised.sql keeps them).
-raw_events AS (
-    SELECT DISTINCT * FROM ({events_normalised}) AS t
-),
 all_rows AS (
     SELECT
         COUNT(*) AS n_rows,
@@ -13,9 +9,10 @@ all_rows AS (
         SUM(CASE WHEN {event_time} IS NULL THEN 1 ELSE 0 END)  AS n_null_time
     FROM {events}
 ),
-distinct_rows AS (
+-- Every row, duplicates included (the first and last event and the customers do not depend on them).
+every_row AS (
     SELECT
-        COUNT(*) AS n_distinct,
+        COUNT(*) AS n_events,
         SUM(CASE WHEN event_time < CAST($log_start AS TIMESTAMP) THEN 1 ELSE 0 END) AS n_before_log,
         SUM(CASE WHEN event_time >= CAST($as_of AS TIMESTAMP) + INTERVAL 1 DAY THEN 1 ELSE 0 END)
             AS n_after_as_of,
@@ -25,7 +22,48 @@ distinct_rows AS (
             THEN customer_id END) AS n_customers_in_window,
         MIN(event_time) AS first_event,
         MAX(event_time) AS last_event
-    FROM raw_events
+    FROM ({events_normalised}) AS t
+),
+-- Exact duplicate rows (events_normalised.sql keeps them) share the customer and the instant, so
+-- only the rows at an instant the customer has more than one event at are compared column by
+-- column: a hash of two columns over every event instead of a DISTINCT over all of them.
+repeated_instants AS (
+    SELECT customer_id, event_time
+    FROM ({events_normalised}) AS t
+    GROUP BY customer_id, event_time
+    HAVING COUNT(*) > 1
+),
+shared AS (
+    SELECT t.*
+    FROM ({events_normalised}) AS t
+    JOIN repeated_instants AS r
+      ON r.customer_id IS NOT DISTINCT FROM t.customer_id
+     AND r.event_time IS NOT DISTINCT FROM t.event_time
+),
+-- Rows beyond the first copy of each distinct row: those rows, less one per distinct row.
+extra_copies AS (
+    SELECT
+        COALESCE(SUM(copy), 0) AS n_extra,
+        COALESCE(SUM(CASE WHEN event_time < CAST($log_start AS TIMESTAMP) THEN copy ELSE 0 END), 0)
+            AS n_extra_before_log,
+        COALESCE(SUM(CASE WHEN event_time >= CAST($as_of AS TIMESTAMP) + INTERVAL 1 DAY
+                          THEN copy ELSE 0 END), 0) AS n_extra_after_as_of
+    FROM (
+        SELECT event_time, 1 AS copy FROM shared
+        UNION ALL
+        SELECT event_time, -1 FROM (SELECT DISTINCT * FROM shared) AS d
+    ) AS u
+),
+-- The counts of distinct rows (each exact duplicate counted once).
+distinct_rows AS (
+    SELECT
+        CAST(e.n_events - x.n_extra AS BIGINT)                       AS n_distinct,
+        CAST(e.n_before_log - x.n_extra_before_log AS BIGINT)        AS n_before_log,
+        CAST(e.n_after_as_of - x.n_extra_after_as_of AS BIGINT)      AS n_after_as_of,
+        e.n_customers_in_window,
+        e.first_event,
+        e.last_event
+    FROM every_row AS e, extra_copies AS x
 ),
 spell_stats AS (
     SELECT

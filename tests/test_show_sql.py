@@ -13,10 +13,12 @@ def test_listing_runs_to_the_extracts_counts(demo_config, demo_extract):
     source = open_source(demo_config)
     statements = extract_statements(demo_config, source)
     titles = [t for t, _ in statements]
-    assert titles[1].startswith("the spells") and titles[2].startswith("survival counts")
-    keep, counts = statements[1][1], statements[2][1]
+    assert titles[1].startswith("each customer's spell boundary marks")
+    assert titles[2].startswith("the spells") and titles[3].startswith("survival counts")
     con = source._con  # type: ignore[attr-defined]
-    con.execute(keep.text, keep.values).fetchall()  # the printed CREATE TEMP TABLE
+    for _, keep in statements[1:3]:  # the printed CREATE TEMP TABLEs: marks, then spells
+        con.execute(keep.text, keep.values).fetchall()
+    counts = statements[3][1]
     shown = con.sql(counts.text, params=counts.values).pl()
     assert_frame_equal(shown.drop("cohort_all", strict=False), demo_extract.counts)
     source.close()
@@ -27,6 +29,6 @@ def test_cli_prints_and_writes_nothing(demo_folder, capsys, tmp_path):
                  "--output", str(tmp_path / "out")])
     out = capsys.readouterr().out
     assert code == 0
-    assert "for DuckDB" in out and "CREATE TEMP TABLE churnlife_spells" in out
+    assert "for DuckDB" in out and "CREATE TEMP TABLE churnlife_spells_2" in out
     assert "-- bound values:" in out
     assert not (tmp_path / "out").exists()

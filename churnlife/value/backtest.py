@@ -18,7 +18,7 @@ import polars as pl
 
 from churnlife.config import Config
 from churnlife.errors import UserError
-from churnlife.extract import parameters, run_extract, spells_sql
+from churnlife.extract import parameters, run_extract, stage_spells
 from churnlife.km import kaplan_meier
 from churnlife.models.suite import fit_models
 from churnlife.source import open_source
@@ -64,7 +64,7 @@ def forecast_backtest(
     forecast = value_customers(extract, earlier, fitted, km, seed=seed, scenario=False).tables[
         "base_forecast"
     ]
-    later = source.stage("spells_later", spells_sql(config, source), parameters(config))
+    later = stage_spells(config, source, parameters(config))
     actual = []
     for j in range(1, units_back + 1):  # one small query per step
         on = shift(back, config.tenure_unit, j)
