@@ -89,12 +89,16 @@ def rewrite(tree: exp.Expression, params: dict[str, Any], dialect: str) -> exp.E
             end = exp.cast(node.this, exp.DataType.build("DATE"))
             start = exp.cast(node.expression, exp.DataType.build("DATE"))
             if dialect == "spark":
+                # transform() does not look inside a replacement: rewrite what the dates hold
+                # (to_months, another date_diff) here
+                end, start = end.transform(each), start.transform(each)
                 return exp.Anonymous(this="DATEDIFF", expressions=[end, start])
             return exp.Paren(this=exp.Sub(this=end, expression=start))
         if isinstance(node, exp.Anonymous) and node.name.lower() == "to_months":
             (k,) = node.expressions
             if dialect == "spark":
                 zero_years = exp.Literal.number(0)
+                k = k.transform(each)  # a to_months or date_diff inside k
                 return exp.Anonymous(this="MAKE_YM_INTERVAL", expressions=[zero_years, k])
             return exp.Paren(
                 this=exp.Mul(this=exp.Paren(this=k), expression=_interval_month())
