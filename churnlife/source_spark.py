@@ -80,7 +80,7 @@ class SparkSource:
         self._views: list[str] = []
         self._stages: list[Any] = []  # checkpointed DataFrames, kept while their views exist
         self._names: dict[str, str] = {}
-        self._spark, self._owned, self._restore = _session(src.resolve_url(), src.spark_conf)
+        self._spark, self._owned, self._restore = session_for(src.resolve_url(), src.spark_conf)
         n = next(_sources)
         try:
             if src.file_format is None:
@@ -225,7 +225,7 @@ def _option(value: Any) -> str:
     return str(value)
 
 
-def _session(url: str, conf: dict[str, str]) -> tuple[Any, bool, dict[str, str | None]]:
+def session_for(url: str, conf: dict[str, str]) -> tuple[Any, bool, dict[str, str | None]]:
     """The running SparkSession, or a new one for ``url``; whether we started it; the settings
     to restore on close."""
     try:

@@ -13,57 +13,23 @@ import polars as pl
 import pytest
 
 from churnlife.errors import UserError
-from tests.logs import config_dict, extract, write_log
-
-M, A = "m", "a"
+from tests.logs import (
+    CUT_SHORT_LOG,
+    EDGE_CUSTOMERS,
+    EDGE_EVENTS,
+    PERIODS_CONFIG,
+    PERIODS_LOG,
+    UNITS_LOG,
+    M,
+    config_dict,
+    extract,
+    write_log,
+)
 
 
 @pytest.fixture()
 def spells(tmp_path):
-    events = [
-        # 1: began 2021-11-15, before the log (2022-01-01): late entry; cancels 2022-03-20.
-        (1, "2022-01-15 10:00", "renew", M, 10, None),
-        (1, "2022-02-15 10:00", "renew", M, 10, None),
-        (1, "2022-03-20 09:00", "cancel", M, 10, "price"),
-        # 2: failed charge on 03-01 recovered on 03-05 (inside 14 days): no churn; active at as-of.
-        (2, "2022-02-01 08:00", "start", M, 10, None),
-        (2, "2022-03-01 08:00", "fail", M, 10, None),
-        (2, "2022-03-05 08:00", "recover", M, 10, None),
-        # 3: failed charge on 04-10, never recovered: involuntary churn on 04-10.
-        (3, "2022-03-10 08:00", "start", M, 10, None),
-        (3, "2022-04-10 08:00", "fail", M, 10, None),
-        # 4: cancels, returns 60 days later (new spell); a cancel after as-of is ignored.
-        (4, "2022-01-05 08:00", "start", M, 10, None),
-        (4, "2022-01-20 08:00", "cancel", M, 10, "other"),
-        (4, "2022-03-21 08:00", "start", M, 10, None),
-        (4, "2023-01-01 08:00", "cancel", M, 10, None),
-        # 5: cancels and returns 9 days later: continuation of one spell; active at as-of.
-        (5, "2022-01-10 08:00", "start", A, 100, None),
-        (5, "2022-02-01 08:00", "cancel", A, 100, None),
-        (5, "2022-02-10 08:00", "start", A, 100, None),
-        # 6: failed charge 2022-06-25, grace runs past as-of (06-30): not yet churn, censored.
-        (6, "2022-05-25 08:00", "start", M, 10, None),
-        (6, "2022-06-25 08:00", "fail", M, 10, None),
-        # 7: exact duplicate rows, and a second start inside the open spell.
-        (7, "2022-02-14 08:00", "start", M, 10, None),
-        (7, "2022-02-14 08:00", "start", M, 10, None),
-        (7, "2022-03-01 08:00", "start", M, 10, None),
-        (7, "2022-04-13 23:00", "cancel", M, 10, "other"),
-        # 8: cancels on the day it starts: one day of tenure, churn in month 1.
-        (8, "2022-06-01 12:00", "start", M, 10, None),
-        (8, "2022-06-01 18:00", "cancel", M, 10, "other"),
-    ]
-    customers = [
-        (1, "2021-11-15", "web"),
-        (2, "2022-02-01", "web"),
-        (3, "2022-03-10", "ads"),
-        (4, "2022-01-05", "ads"),
-        (5, "2022-01-10", "web"),
-        (6, "2022-05-25", "web"),
-        (7, "2022-02-14", "ads"),
-        (8, "2022-06-01", "ads"),
-    ]
-    write_log(tmp_path, events, customers)
+    write_log(tmp_path, EDGE_EVENTS, EDGE_CUSTOMERS)
     ex = extract(tmp_path, config_dict(cohorts={"by": ["plan"]}))
     return ex, ex.spells()
 
@@ -160,31 +126,14 @@ def test_counts_by_hand(spells):
     [("days", 47.0), ("weeks", 47 / 7)],
 )
 def test_other_units(tmp_path, unit, exit_exact):
-    write_log(
-        tmp_path,
-        [
-            (1, "2022-02-01 08:00", "start", M, 10, None),
-            (1, "2022-03-19 08:00", "cancel", M, 10, None),
-        ],
-        [(1, "2022-02-01", "web")],
-    )
+    write_log(tmp_path, *UNITS_LOG)  # 02-01 to 03-19
     r = extract(tmp_path, config_dict(tenure={"unit": unit})).spells().to_dicts()[0]
     assert r["exit_exact"] == pytest.approx(exit_exact)  # 02-01 .. 03-19 inclusive = 47 days
 
 
 def test_periods_unit_uses_plan_length(tmp_path):
-    write_log(
-        tmp_path,
-        [
-            (1, "2022-01-10 08:00", "start", A, 100, None),
-            (1, "2022-04-09 08:00", "cancel", A, 100, None),
-        ],
-        [(1, "2022-01-10", "web")],
-    )
-    cfg = config_dict(
-        tenure={"unit": "periods", "period_months": {A: 12}},
-        window={"log_start": "2022-01-01", "as_of": "2023-06-30"},  # a whole year observed
-    )
+    write_log(tmp_path, *PERIODS_LOG)  # annual plan, 01-10 to 04-09
+    cfg = config_dict(**PERIODS_CONFIG)  # a whole year observed
     r = extract(tmp_path, cfg).spells().to_dicts()[0]
     assert r["exit_exact"] == pytest.approx(3 / 12) and r["exit_t"] == 1
 
@@ -217,16 +166,7 @@ def test_churn_in_the_unit_cut_short_by_as_of_is_not_counted(tmp_path):
     """As-of 06-30: a spell started 03-10 has 3 whole months in the window (to 06-10). A cancel on
     06-20 falls in month 4, which the window cuts short, so it is censored at 3: customers still
     active in month 4 could not be counted as surviving it either."""
-    write_log(
-        tmp_path,
-        [
-            (1, "2022-03-10 08:00", "start", M, 10, None),
-            (1, "2022-06-20 08:00", "cancel", M, 10, None),
-            (2, "2022-03-10 08:00", "start", M, 10, None),
-            (2, "2022-05-20 08:00", "cancel", M, 10, None),
-        ],
-        [(1, "2022-03-10", "web"), (2, "2022-03-10", "web")],
-    )
+    write_log(tmp_path, *CUT_SHORT_LOG)
     ex = extract(tmp_path, config_dict())
     s = {r["customer_id"]: r for r in ex.spells().to_dicts()}
     assert s[1]["churned"] and not s[1]["churn_counted"] and s[1]["exit_t"] == 3
