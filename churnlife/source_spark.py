@@ -209,6 +209,7 @@ class SparkSource:
         if self._owned:
             with contextlib.suppress(Exception):
                 spark.stop()
+            _log_path().unlink(missing_ok=True)
         else:
             for key, value in self._restore.items():
                 with contextlib.suppress(Exception):

@@ -242,10 +242,11 @@ def test_close_drops_our_views_and_keeps_a_session_it_did_not_start(spark, demo_
 # -- the hand-written edge-case logs -------------------------------------------------------------
 
 
-def _minus_two_hours(column: str) -> str:
-    # the same instants as text with a -02:00 offset: 2022-04-13 23:00 UTC reads 21:00-02:00,
-    # while 22:30 local would be the next day in UTC; both engines must read them in UTC
-    return f"strftime({column} - INTERVAL 2 HOUR, '%Y-%m-%d %H:%M:%S') || '-02:00' AS {column}"
+def _as_text_plus_ten(column: str) -> str:
+    # the same instants as text in a zone ten hours ahead of UTC: 2022-04-13 23:00 UTC reads
+    # 2022-04-14 09:00:00+10:00, a day later on the calendar, so an engine that dropped the
+    # offset would date the event (and the spell's end) a day late
+    return f"strftime({column} + INTERVAL 10 HOUR, '%Y-%m-%d %H:%M:%S') || '+10:00' AS {column}"
 
 
 EDGE_CASES = {
@@ -259,7 +260,7 @@ EDGE_CASES = {
     ),
     "hand-worked, text times with an offset": (
         EDGE_EVENTS, EDGE_CUSTOMERS, {"tenure": {"unit": "weeks"}},
-        f"* REPLACE ({_minus_two_hours('ts')})", "files",
+        f"* REPLACE ({_as_text_plus_ten('ts')})", "files",
     ),
     "days": (*UNITS_LOG, {"tenure": {"unit": "days"}}, "*", "files"),
     "periods": (*PERIODS_LOG, PERIODS_CONFIG, "*", "files"),
@@ -301,13 +302,13 @@ def test_edge_case_log_equals_duckdb(spark, tmp_path, case):
 
 
 def test_text_times_are_read_in_utc(spark, tmp_path):
-    """The -02:00 text log above is the UTC log moved into another zone: read in UTC, its spells
-    are the plain log's (a check that the offset is applied, not dropped)."""
+    """The +10:00 text log above is the UTC log written in another zone: read in UTC, its spells
+    are the plain log's (the offset is applied, not dropped)."""
     database = write_log(tmp_path, EDGE_EVENTS, EDGE_CUSTOMERS)
     plain, shifted = tmp_path / "plain", tmp_path / "shifted"
     plain.mkdir(), shifted.mkdir()
     _to_parquet(database, {"ev": "*", "cu": "*"}, plain)
-    _to_parquet(database, {"ev": f"* REPLACE ({_minus_two_hours('ts')})", "cu": "*"}, shifted)
+    _to_parquet(database, {"ev": f"* REPLACE ({_as_text_plus_ten('ts')})", "cu": "*"}, shifted)
     spells = []
     for folder in (plain, shifted):
         cfg = parse_config(_cfg(_spark_source(
