@@ -258,7 +258,10 @@ def session_for(url: str, conf: dict[str, str]) -> tuple[Any, bool, dict[str, st
         settings["spark.ui.enabled"] = "false"
         settings["spark.sql.warehouse.dir"] = str(Path(tempfile.gettempdir()) / "churnlife-spark"
                                                   / "warehouse")
+    options_key = "spark.driver.extraJavaOptions"  # the user's options join our log setting
+    java_options = f"{settings[options_key]} {conf.get(options_key, '')}".strip()
     settings.update(conf)
+    settings[options_key] = java_options
     for key, value in settings.items():
         builder = builder.config(key, value)
     log = _log_path()
