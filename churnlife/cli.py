@@ -22,6 +22,7 @@ examples:
   churnlife demo                          build the demo database and analyse it
   churnlife demo --folder /tmp/tidewell   the same, in another folder
   churnlife check --config my.toml        validate a config against the data; write nothing
+  churnlife check --config my.toml --show-sql   print the SQL the extract sends; run none of it
   churnlife run --config my.toml          analyse; write tables, charts and report.html
   churnlife run --config my.toml --output out/2026-12
   churnlife models --config my.toml       fit hazard models per cohort; print their ranking
@@ -66,6 +67,12 @@ def _parser() -> argparse.ArgumentParser:
             formatter_class=argparse.RawDescriptionHelpFormatter,
         )
         cmd.add_argument("--config", required=True, help="path of the TOML config")
+        cmd.add_argument(
+            "--show-sql",
+            action="store_true",
+            help="print the extract's SQL as the engine would receive it (with the values it "
+            "binds), and stop: nothing but column names and types is read",
+        )
         if name == "run":
             cmd.add_argument("--output", help="output folder (default: [output] folder)")
             _model_options(cmd)
@@ -319,6 +326,20 @@ def _check(config_path: str) -> int:
     return 0
 
 
+def _show_sql(config_path: str) -> int:
+    from churnlife.config import load_config
+    from churnlife.show_sql import listing
+    from churnlife.source import open_source
+
+    config = load_config(config_path)
+    source = open_source(config)
+    try:
+        print(listing(config, source), end="")
+    finally:
+        source.close()
+    return 0
+
+
 def _demo(folder: str, customers: int, seed: int, build_only: bool, as_json: bool) -> int:
     from churnlife.demo.generate import build_demo
 
@@ -353,6 +374,8 @@ def main(argv: list[str] | None = None) -> int:
 
 def _dispatch(args: argparse.Namespace) -> int:
     try:
+        if getattr(args, "show_sql", False):
+            return _show_sql(args.config)
         if args.command == "demo":
             return _demo(args.folder, args.customers, args.seed, args.build_only, args.json)
         if args.command == "run":

@@ -46,16 +46,16 @@ class Statement:
     dialect: str
 
     def listing(self) -> str:
-        """The text followed by its bound values as SQL comments (for --show-sql)."""
+        """The text, ended by ``;``, and its bound values as SQL comments (for --show-sql)."""
         if not self.values:
-            return self.text
+            return self.text + ";"
         items = (
             self.values.items()
             if isinstance(self.values, dict)
             else ((f"${i}", v) for i, v in enumerate(self.values, start=1))
         )
         lines = [f"--   {name} = {_show(value)}" for name, value in items]
-        return self.text + "\n-- bound values:\n" + "\n".join(lines)
+        return self.text + ";\n-- bound values:\n" + "\n".join(lines)
 
 
 def _show(value: Any) -> str:
@@ -80,40 +80,43 @@ def rewrite(tree: exp.Expression, params: dict[str, Any], dialect: str) -> exp.E
         raise ValueError(f"unknown dialect {dialect!r}")
     tree = tree.copy()
 
-    def each(node: exp.Expression) -> exp.Expression:
+    def lists(node: exp.Expression) -> exp.Expression:
         if isinstance(node, exp.ArrayContains) and isinstance(node.this, exp.Placeholder):
             return _in_list(node, params)
-        if dialect == "duckdb":
-            return node
-        if isinstance(node, exp.DateDiff) and _unit(node) == "DAY":
-            end = exp.cast(node.this, exp.DataType.build("DATE"))
-            start = exp.cast(node.expression, exp.DataType.build("DATE"))
-            if dialect == "spark":
-                # transform() does not look inside a replacement: rewrite what the dates hold
-                # (to_months, another date_diff) here
-                end, start = end.transform(each), start.transform(each)
-                return exp.Anonymous(this="DATEDIFF", expressions=[end, start])
-            return exp.Paren(this=exp.Sub(this=end, expression=start))
+        return node
+
+    def months(node: exp.Expression) -> exp.Expression:
         if isinstance(node, exp.Anonymous) and node.name.lower() == "to_months":
             (k,) = node.expressions
             if dialect == "spark":
                 zero_years = exp.Literal.number(0)
-                k = k.transform(each)  # a to_months or date_diff inside k
                 return exp.Anonymous(this="MAKE_YM_INTERVAL", expressions=[zero_years, k])
-            return exp.Paren(
-                this=exp.Mul(this=exp.Paren(this=k), expression=_interval_month())
-            )
-        if (
-            dialect == "postgres"
-            and isinstance(node, exp.Explode | exp.Unnest)
-            and isinstance(node.this, exp.GenerateSeries)
-        ):
-            return exp.Anonymous(
-                this="generate_series", expressions=[node.this.args["start"], node.this.args["end"]]
-            )
+            return exp.Paren(this=exp.Mul(this=exp.Paren(this=k), expression=_interval_month()))
         return node
 
-    return tree.transform(each)
+    def days(node: exp.Expression) -> exp.Expression:
+        if isinstance(node, exp.DateDiff) and _unit(node) == "DAY":
+            end = exp.cast(node.this, exp.DataType.build("DATE"))
+            start = exp.cast(node.expression, exp.DataType.build("DATE"))
+            if dialect == "spark":
+                return exp.Anonymous(this="DATEDIFF", expressions=[end, start])
+            return exp.Paren(this=exp.Sub(this=end, expression=start))
+        return node
+
+    def series(node: exp.Expression) -> exp.Expression:
+        if isinstance(node, exp.Explode | exp.Unnest) and isinstance(
+            node.this, exp.GenerateSeries
+        ):
+            bounds = [node.this.args["start"], node.this.args["end"]]
+            return exp.Anonymous(this="generate_series", expressions=bounds)
+        return node
+
+    # one pass per rewrite, innermost first: transform() does not revisit a replaced subtree
+    tree = tree.transform(lists)
+    if dialect == "duckdb":
+        return tree
+    tree = tree.transform(months).transform(days)
+    return tree.transform(series) if dialect == "postgres" else tree
 
 
 def _unit(node: exp.DateDiff) -> str:
@@ -161,9 +164,17 @@ def bind(tree: exp.Expression, params: dict[str, Any], dialect: str) -> Statemen
         raise RuntimeError(f"SQL needs parameters that were not given: {sorted(missing)}")
     if dialect == "postgres":
         number = {name: i for i, name in enumerate(names, start=1)}
-        marked = tree.transform(
-            lambda n: exp.Var(this=f"${number[n.name]}") if isinstance(n, exp.Placeholder) else n
-        )
+
+        def typed(n: exp.Expression) -> exp.Expression:
+            # each marker says its type: PostgreSQL has no date + bigint, and infers
+            # nothing from an untyped marker inside an expression
+            if not isinstance(n, exp.Placeholder):
+                return n
+            marker = exp.Var(this=f"${number[n.name]}")
+            kind = exp.DataType.build(_pg_type(values[n.name]), dialect="postgres")
+            return exp.cast(marker, kind)
+
+        marked = tree.transform(typed)
         text = marked.sql(dialect="postgres", pretty=True)
         return Statement(text, tuple(values[n] for n in names), dialect)
     if dialect == "spark":
@@ -174,6 +185,20 @@ def bind(tree: exp.Expression, params: dict[str, Any], dialect: str) -> Statemen
     )
     return Statement(marked.sql(dialect="duckdb", pretty=True), {n: values[n] for n in names},
                      dialect)
+
+
+def _pg_type(value: Any) -> str:
+    if isinstance(value, bool):
+        return "BOOLEAN"
+    if isinstance(value, int):
+        return "INTEGER" if -(2**31) <= value < 2**31 else "BIGINT"
+    if isinstance(value, float):
+        return "DOUBLE PRECISION"
+    if isinstance(value, dt.datetime):
+        return "TIMESTAMP"
+    if isinstance(value, dt.date):
+        return "DATE"
+    return "TEXT"
 
 
 def translate(sql: str, params: dict[str, Any], dialect: str) -> Statement:

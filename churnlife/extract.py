@@ -26,11 +26,15 @@ _COMMENT = re.compile(r"--[^\n]*")
 
 
 @cache
-def read_query(name: str) -> str:
+def read_query(name: str, dialect: str | None = None) -> str:
     """Text of queries/<name>.sql (installed as the package churnlife.queries), without its
-    ``--`` comments (they document the file, and may mention template slots)."""
-    text = resources.files("churnlife.queries").joinpath(f"{name}.sql").read_text("utf-8")
-    return _COMMENT.sub("", text).strip()
+    ``--`` comments (they document the file, and may mention template slots). Where the
+    translation for an engine cannot express a query, queries/<name>.<dialect>.sql is read in
+    its place (same slots, parameters and result columns)."""
+    folder = resources.files("churnlife.queries")
+    own = folder.joinpath(f"{name}.{dialect}.sql") if dialect else None
+    path = own if own is not None and own.is_file() else folder.joinpath(f"{name}.sql")
+    return _COMMENT.sub("", path.read_text("utf-8")).strip()
 
 
 def fill(sql: str, slots: dict[str, str]) -> str:

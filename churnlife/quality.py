@@ -118,7 +118,7 @@ def _text_column(
     assert column is not None
     cast = {"time": "TIMESTAMPTZ", "date": "DATE", "number": "DOUBLE"}[need]
     sql = fill(
-        read_query("text_values"),
+        read_query("text_values", source.dialect),
         {"relation": source.relation(relation_role), "column": source.quote(column),
          "cast_type": cast},
     )

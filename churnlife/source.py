@@ -56,6 +56,13 @@ class Source(Protocol):
     def statement(self, sql: str, params: dict[str, Any]) -> Statement:
         """The text this engine would run for ``sql`` and the values it would bind."""
 
+    def plan_stage(
+        self, name: str, sql: str, params: dict[str, Any]
+    ) -> tuple[str, Statement | None]:
+        """What ``stage`` would do, without running anything: the name later SQL would use, and
+        the statement that would keep the result (None where the stage is instead composed
+        into each later query that reads it)."""
+
     def close(self) -> None: ...
 
 
@@ -178,6 +185,13 @@ class DuckDBSource:
 
     def statement(self, sql: str, params: dict[str, Any]) -> Statement:
         return Statement(sql, used_params(sql, params), "duckdb")
+
+    def plan_stage(
+        self, name: str, sql: str, params: dict[str, Any]
+    ) -> tuple[str, Statement | None]:
+        self._staged += 1
+        table = f"churnlife_{name}_{self._staged}"
+        return f"temp.main.{table}", self.statement(f"CREATE TEMP TABLE {table} AS {sql}", params)
 
     def close(self) -> None:
         self._con.close()

@@ -168,6 +168,18 @@ class SparkSource:
         self._stages.append(frame)
         return view
 
+    def plan_stage(
+        self, name: str, sql: str, params: dict[str, Any]
+    ) -> tuple[str, Statement | None]:
+        """What ``stage`` would run (nothing is run): the query, whose result churnlife computes
+        once (localCheckpoint) and keeps as a temporary view of the session under the name
+        returned."""
+        view = f"churnlife_{name}_{next(_views)}"
+        stmt = self.statement(sql, params)
+        note = (f"-- computed once (localCheckpoint) and kept as the temporary view {view} of "
+                "churnlife's session\n")
+        return view, Statement(note + stmt.text, stmt.values, stmt.dialect)
+
     @contextlib.contextmanager
     def _running(self) -> Iterator[None]:
         """Run Spark jobs in a job group of our own: cancelled after statement_timeout_s, or on

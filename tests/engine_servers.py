@@ -98,3 +98,20 @@ def start_postgres() -> PostgresServer:
             time.sleep(0.1)
     server.stop()
     raise RuntimeError("PostgreSQL did not start")
+
+
+def load_duckdb_tables(url: str, duckdb_path: Path, schema: str = "public") -> list[str]:
+    """Copy every table of a DuckDB file into PostgreSQL (``schema``), through Arrow."""
+    import adbc_driver_postgresql.dbapi as dbapi
+    import duckdb
+
+    con = duckdb.connect(str(duckdb_path), read_only=True)
+    names = [r[0] for r in con.execute("SELECT table_name FROM duckdb_tables()").fetchall()]
+    with dbapi.connect(url) as pg, pg.cursor() as cur:
+        cur.execute(f'CREATE SCHEMA IF NOT EXISTS "{schema}"')
+        for name in names:
+            table = con.sql(f'SELECT * FROM "{name}"').to_arrow_table()
+            cur.adbc_ingest(name, table, mode="replace", db_schema_name=schema)
+        pg.commit()
+    con.close()
+    return names

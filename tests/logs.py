@@ -33,10 +33,9 @@ BASE_CONFIG: dict[str, Any] = {
 }
 
 
-M, A = "m", "a"  # a monthly and an annual plan
-
-# The hand-written edge-case log of tests/test_extract_edge_cases.py (its answers are worked out by
-# hand there); the engine tests run it on every engine too.
+# The edge-case log (tests/test_extract_edge_cases.py works out its answers by hand; the engine
+# tests check that PostgreSQL and Spark count it as DuckDB does): plans "m" (monthly), "a".
+M, A = "m", "a"
 EDGE_EVENTS: list[tuple] = [
     # 1: began 2021-11-15, before the log (2022-01-01): late entry; cancels 2022-03-20.
     (1, "2022-01-15 10:00", "renew", M, 10, None),

@@ -198,6 +198,26 @@ def test_statement_is_spark_sql_with_bound_values(demo_pair):
     assert "$" not in stmt.text  # every DuckDB marker became a Spark one
 
 
+def test_shown_statements_are_the_ones_that_run(spark, demo_pair):
+    """--show-sql on Spark: the printed spells statement, run by hand and kept under the printed
+    name, and the printed counts statement give the extract's counts."""
+    from churnlife.show_sql import extract_statements, listing
+    from churnlife.source_spark import _to_polars
+
+    spark_ex, _, spark_cfg, _ = demo_pair
+    source = spark_ex.source
+    statements = extract_statements(spark_cfg, source)
+    (_, keep), (_, counts) = statements[1], statements[2]
+    view = statements[1][0].rsplit(" ", 1)[-1]
+    spark.sql(keep.text, args=keep.values).createOrReplaceTempView(view)
+    try:
+        shown = _to_polars(spark.sql(counts.text, args=counts.values).toArrow())
+    finally:
+        spark.catalog.dropTempView(view)
+    _assert_same_counts(shown.drop("cohort_all", strict=False), spark_ex.counts)
+    assert "for Spark SQL" in listing(spark_cfg, source)
+
+
 def test_engine_error_names_the_column(demo_pair):
     spark_ex, _, _, _ = demo_pair
     source = spark_ex.source
