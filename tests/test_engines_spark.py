@@ -209,7 +209,7 @@ def test_shown_statements_are_the_ones_that_run(spark, demo_pair):
     statements = extract_statements(spark_cfg, source)
     (_, keep), (_, counts) = statements[1], statements[2]
     view = statements[1][0].rsplit(" ", 1)[-1]
-    spark.sql(keep.text, args=keep.values).createOrReplaceTempView(view)
+    spark.sql(keep.text, args=keep.values).localCheckpoint().createOrReplaceTempView(view)
     try:
         shown = _to_polars(spark.sql(counts.text, args=counts.values).toArrow())
     finally:
