@@ -80,6 +80,38 @@ EDGE_CUSTOMERS: list[tuple] = [
     (8, "2022-06-01", "ads"),
 ]
 
+# One monthly spell, 2022-02-01 to 2022-03-19 (47 days inclusive), for the days and weeks units.
+UNITS_LOG: tuple[list[tuple], list[tuple]] = (
+    [
+        (1, "2022-02-01 08:00", "start", M, 10, None),
+        (1, "2022-03-19 08:00", "cancel", M, 10, None),
+    ],
+    [(1, "2022-02-01", "web")],
+)
+# One annual spell, 2022-01-10 to 2022-04-09, counted in periods of the plan's length.
+PERIODS_LOG: tuple[list[tuple], list[tuple]] = (
+    [
+        (1, "2022-01-10 08:00", "start", A, 100, None),
+        (1, "2022-04-09 08:00", "cancel", A, 100, None),
+    ],
+    [(1, "2022-01-10", "web")],
+)
+PERIODS_CONFIG: dict[str, dict[str, Any]] = {
+    "tenure": {"unit": "periods", "period_months": {A: 12}},
+    "window": {"log_start": "2022-01-01", "as_of": "2023-06-30"},
+}
+# Two spells from 2022-03-10: a cancel in month 4, which the as-of date 06-30 cuts short, and
+# one in month 3.
+CUT_SHORT_LOG: tuple[list[tuple], list[tuple]] = (
+    [
+        (1, "2022-03-10 08:00", "start", M, 10, None),
+        (1, "2022-06-20 08:00", "cancel", M, 10, None),
+        (2, "2022-03-10 08:00", "start", M, 10, None),
+        (2, "2022-05-20 08:00", "cancel", M, 10, None),
+    ],
+    [(1, "2022-03-10", "web"), (2, "2022-03-10", "web")],
+)
+
 
 def write_log(
     folder: Path,

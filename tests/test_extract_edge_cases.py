@@ -13,7 +13,18 @@ import polars as pl
 import pytest
 
 from churnlife.errors import UserError
-from tests.logs import EDGE_CUSTOMERS, EDGE_EVENTS, A, M, config_dict, extract, write_log
+from tests.logs import (
+    CUT_SHORT_LOG,
+    EDGE_CUSTOMERS,
+    EDGE_EVENTS,
+    PERIODS_CONFIG,
+    PERIODS_LOG,
+    UNITS_LOG,
+    M,
+    config_dict,
+    extract,
+    write_log,
+)
 
 
 @pytest.fixture()
@@ -115,31 +126,14 @@ def test_counts_by_hand(spells):
     [("days", 47.0), ("weeks", 47 / 7)],
 )
 def test_other_units(tmp_path, unit, exit_exact):
-    write_log(
-        tmp_path,
-        [
-            (1, "2022-02-01 08:00", "start", M, 10, None),
-            (1, "2022-03-19 08:00", "cancel", M, 10, None),
-        ],
-        [(1, "2022-02-01", "web")],
-    )
+    write_log(tmp_path, *UNITS_LOG)  # 02-01 to 03-19
     r = extract(tmp_path, config_dict(tenure={"unit": unit})).spells().to_dicts()[0]
     assert r["exit_exact"] == pytest.approx(exit_exact)  # 02-01 .. 03-19 inclusive = 47 days
 
 
 def test_periods_unit_uses_plan_length(tmp_path):
-    write_log(
-        tmp_path,
-        [
-            (1, "2022-01-10 08:00", "start", A, 100, None),
-            (1, "2022-04-09 08:00", "cancel", A, 100, None),
-        ],
-        [(1, "2022-01-10", "web")],
-    )
-    cfg = config_dict(
-        tenure={"unit": "periods", "period_months": {A: 12}},
-        window={"log_start": "2022-01-01", "as_of": "2023-06-30"},  # a whole year observed
-    )
+    write_log(tmp_path, *PERIODS_LOG)  # annual plan, 01-10 to 04-09
+    cfg = config_dict(**PERIODS_CONFIG)  # a whole year observed
     r = extract(tmp_path, cfg).spells().to_dicts()[0]
     assert r["exit_exact"] == pytest.approx(3 / 12) and r["exit_t"] == 1
 
@@ -172,16 +166,7 @@ def test_churn_in_the_unit_cut_short_by_as_of_is_not_counted(tmp_path):
     """As-of 06-30: a spell started 03-10 has 3 whole months in the window (to 06-10). A cancel on
     06-20 falls in month 4, which the window cuts short, so it is censored at 3: customers still
     active in month 4 could not be counted as surviving it either."""
-    write_log(
-        tmp_path,
-        [
-            (1, "2022-03-10 08:00", "start", M, 10, None),
-            (1, "2022-06-20 08:00", "cancel", M, 10, None),
-            (2, "2022-03-10 08:00", "start", M, 10, None),
-            (2, "2022-05-20 08:00", "cancel", M, 10, None),
-        ],
-        [(1, "2022-03-10", "web"), (2, "2022-03-10", "web")],
-    )
+    write_log(tmp_path, *CUT_SHORT_LOG)
     ex = extract(tmp_path, config_dict())
     s = {r["customer_id"]: r for r in ex.spells().to_dicts()}
     assert s[1]["churned"] and not s[1]["churn_counted"] and s[1]["exit_t"] == 3
