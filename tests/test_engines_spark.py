@@ -188,32 +188,37 @@ def test_demo_price_episode_counts_equal_duckdb(demo_pair):
 
 
 def test_statement_is_spark_sql_with_bound_values(demo_pair):
-    from churnlife.extract import parameters, spells_sql
+    from churnlife.extract import marks_sql, parameters
 
     spark_ex, _, spark_cfg, _ = demo_pair
     source = spark_ex.source
-    stmt = source.statement(spells_sql(spark_cfg, source), parameters(spark_cfg))
+    stmt = source.statement(marks_sql(spark_cfg, source), parameters(spark_cfg))
     assert stmt.dialect == "spark" and "`occurred_at`" in stmt.text
     assert ":as_of" in stmt.text and stmt.values["as_of"] == spark_cfg.as_of
     assert "$" not in stmt.text  # every DuckDB marker became a Spark one
 
 
 def test_shown_statements_are_the_ones_that_run(spark, demo_pair):
-    """--show-sql on Spark: the printed spells statement, run by hand and kept under the printed
-    name, and the printed counts statement give the extract's counts."""
+    """--show-sql on Spark: the printed marks and spells statements, run by hand and kept under
+    the printed names, and the printed counts statement give the extract's counts."""
     from churnlife.show_sql import extract_statements, listing
     from churnlife.source_spark import _to_polars
 
     spark_ex, _, spark_cfg, _ = demo_pair
     source = spark_ex.source
     statements = extract_statements(spark_cfg, source)
-    (_, keep), (_, counts) = statements[1], statements[2]
-    view = statements[1][0].rsplit(" ", 1)[-1]
-    spark.sql(keep.text, args=keep.values).localCheckpoint().createOrReplaceTempView(view)
+    kept, (_, counts) = statements[1:3], statements[3]  # marks, spells, then the counts
+    views = []
     try:
+        for title, keep in kept:
+            views.append(title.rsplit(" ", 1)[-1])
+            spark.sql(keep.text, args=keep.values).localCheckpoint().createOrReplaceTempView(
+                views[-1]
+            )
         shown = _to_polars(spark.sql(counts.text, args=counts.values).toArrow())
     finally:
-        spark.catalog.dropTempView(view)
+        for view in views:
+            spark.catalog.dropTempView(view)
     _assert_same_counts(shown.drop("cohort_all", strict=False), spark_ex.counts)
     assert "for Spark SQL" in listing(spark_cfg, source)
 
