@@ -144,7 +144,7 @@ def report(recorder: Recorder, total: float, top: int) -> None:
         rows = "FAILED" if r["failed"] else f"{r['rows']:,}" if "rows" in r else ""
         print(f"{r['query']:<22} {r['kind']:<6} {r['seconds']:>8.2f} {rows:>10}")
         prof = r.get("profile")
-        if prof and r["seconds"] >= 0.05:
+        if prof and r["query"] != "other":  # "other": the column-type probes (LIMIT 0)
             sysinfo = prof["system"]
             print(f"    engine CPU {prof['cpu_time']:.2f} s, peak buffer memory "
                   f"{_mib(sysinfo.get('peak_buffer_memory'))}, spilled "

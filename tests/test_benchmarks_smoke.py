@@ -95,3 +95,29 @@ def test_extract_runs_on_the_log(tiny_log):
         assert int(left) == ex.summary["n_spells"]
     finally:
         source.close()
+
+
+def test_profile_names_each_query_file(tiny_log):
+    """benchmarks/profile_extract.py (run as its own process: it wraps the source's methods)
+    labels each query the extract runs by its file and reads DuckDB's operator profile."""
+    import re
+    import subprocess
+    import sys
+
+    folder, _ = tiny_log
+    out = subprocess.run(
+        [sys.executable, str(ROOT / "benchmarks" / "profile_extract.py"), str(folder),
+         "--operators", "--top", "3"],
+        capture_output=True, text=True, check=True, timeout=300,
+    ).stdout
+    labels = {m.group(1) for m in re.finditer(r"^(\w+)\s+(?:query|stage)\s", out, re.M)}
+    assert {"marks", "spells", "counts", "summary", "quality"} <= labels
+    assert re.search(r"^marks\s+stage\s", out, re.M) and re.search(r"^spells\s+stage\s", out, re.M)
+    assert "engine CPU" in out and "READ_PARQUET" in out
+    cfg = load_config(folder / "churnlife.toml")
+    source = open_source(cfg)
+    try:
+        n_spells = run_extract(cfg, source).summary["n_spells"]
+    finally:
+        source.close()
+    assert f"{n_spells:,} spells" in out
