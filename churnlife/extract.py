@@ -206,12 +206,31 @@ def customer_info_sql(config: Config, source: Source) -> str:
     )
 
 
-def marks_sql(config: Config, source: Source) -> str:
-    """The boundary marks query for this config and engine (queries/marks.sql)."""
+def customer_events_sql(config: Config, source: Source) -> str:
+    """The per-customer pass over the log (queries/customer_events.sql): each customer's first
+    event and first start inside the window, one row per customer with an event there."""
+    return fill(
+        read_query("customer_events"),
+        {"events_normalised": events_normalised_sql(config, source)},
+    )
+
+
+def stage_customer_events(config: Config, source: Source, params: dict[str, Any]) -> str:
+    """Stage the per-customer pass (queries/customer_events.sql); return the relation."""
+    return source.stage("customer_events", customer_events_sql(config, source), params)
+
+
+def marks_sql(config: Config, source: Source, customer_events_relation: str) -> str:
+    """The boundary marks query for this config and engine (queries/marks.sql), reading the
+    staged per-customer pass."""
     events_norm = events_normalised_sql(config, source)
     return fill(
         read_query("marks"),
-        {"events_normalised": events_norm, "customer_info": customer_info_sql(config, source)},
+        {
+            "events_normalised": events_norm,
+            "customer_info": customer_info_sql(config, source),
+            "customer_events": customer_events_relation,
+        },
     )
 
 
@@ -232,9 +251,14 @@ def spells_sql(config: Config, source: Source, marks_relation: str) -> str:
     )
 
 
-def stage_marks(config: Config, source: Source, params: dict[str, Any]) -> str:
-    """Stage the boundary marks (queries/marks.sql); return the relation."""
-    return source.stage("marks", marks_sql(config, source), params)
+def stage_marks(
+    config: Config, source: Source, params: dict[str, Any],
+    customer_events_relation: str | None = None,
+) -> str:
+    """Stage the per-customer pass (unless given), then the boundary marks (queries/marks.sql);
+    return the marks relation."""
+    per_customer = customer_events_relation or stage_customer_events(config, source, params)
+    return source.stage("marks", marks_sql(config, source, per_customer), params)
 
 
 def stage_spells(
@@ -246,14 +270,18 @@ def stage_spells(
     return source.stage("spells", spells_sql(config, source, marks), params)
 
 
-def summary_sql(config: Config, source: Source, spells_relation: str) -> str:
-    """The one-row data summary (queries/summary.sql) over the log and the staged spells."""
+def summary_sql(
+    config: Config, source: Source, spells_relation: str, customer_events_relation: str
+) -> str:
+    """The one-row data summary (queries/summary.sql) over the log, the staged spells and the
+    staged per-customer pass."""
     return fill(
         read_query("summary"),
         {
             "events": source.relation("events"),
             "events_normalised": events_normalised_sql(config, source),
             "spells": spells_relation,
+            "customer_events": customer_events_relation,
             "customer_id": _col_or_null(config, source, "customer_id"),
             "event_time": _col_or_null(config, source, "event_time"),
         },
@@ -299,16 +327,20 @@ def run_extract(config: Config, source: Source) -> Extract:
     params = parameters(config)
     checked = quality.check_log(config, source, params)  # stops on what cannot be handled
     _check_codes(config, source, params)
-    marks_rel = stage_marks(config, source, params)
+    per_customer_rel = stage_customer_events(config, source, params)
+    marks_rel = stage_marks(config, source, params, per_customer_rel)
     spells_rel = stage_spells(config, source, params, marks_rel)
     counts = count_spells(source, spells_rel, config.cohorts)
-    summary = source.query(summary_sql(config, source, spells_rel), params).to_dicts()[0]
+    summary = source.query(
+        summary_sql(config, source, spells_rel, per_customer_rel), params
+    ).to_dicts()[0]
     summary["n_duplicate_rows"] = int(summary["n_rows"] or 0) - int(summary["n_distinct"] or 0)
     summary.update(checked)
     if summary["n_spells"]:
         summary.update(
             quality.count_anomalies(
-                config, source, params, marks_rel, spells_rel, customer_info_sql(config, source)
+                config, source, params, marks_rel, spells_rel, per_customer_rel,
+                customer_info_sql(config, source),
             )
         )
     if not summary["n_spells"]:

@@ -244,9 +244,10 @@ def explain_empty_window(config: Config, summary: dict[str, Any]) -> None:
 
 def anomalies_sql(
     config: Config, source: Source, marks_relation: str, spells_relation: str,
-    customer_info_sql: str,
+    customer_events_relation: str, customer_info_sql: str,
 ) -> str:
-    """queries/quality.sql for this config and engine, reading the staged marks and spells."""
+    """queries/quality.sql for this config and engine, reading the staged marks, spells and
+    per-customer pass (queries/customer_events.sql)."""
     from churnlife.extract import events_normalised_sql, fill, read_query
 
     return fill(
@@ -256,19 +257,24 @@ def anomalies_sql(
             "customer_info": customer_info_sql,
             "marks": marks_relation,
             "spells": spells_relation,
+            "customer_events": customer_events_relation,
         },
     )
 
 
 def count_anomalies(
     config: Config, source: Source, params: dict[str, Any], marks_relation: str,
-    spells_relation: str, customer_info_sql: str,
+    spells_relation: str, customer_events_relation: str, customer_info_sql: str,
 ) -> dict[str, Any]:
     """The handled anomalies' counts (queries/quality.sql, queries/quality_customers.sql), from
-    the staged boundary marks (queries/marks.sql) and the spells made from them."""
+    the staged boundary marks (queries/marks.sql), the spells made from them and the staged
+    per-customer pass (queries/customer_events.sql)."""
     from churnlife.extract import fill, read_query
 
-    sql = anomalies_sql(config, source, marks_relation, spells_relation, customer_info_sql)
+    sql = anomalies_sql(
+        config, source, marks_relation, spells_relation, customer_events_relation,
+        customer_info_sql,
+    )
     row = source.query(sql, params).row(0, named=True)  # one row of counts
     counts = {k: int(v or 0) for k, v in row.items()}
     if config.customer_columns_in == "customers":

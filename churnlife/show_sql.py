@@ -15,6 +15,7 @@ from churnlife.dialects import Statement
 from churnlife.extract import (
     _check_columns,
     counts_sql,
+    customer_events_sql,
     customer_info_sql,
     fill,
     marks_sql,
@@ -38,7 +39,15 @@ def extract_statements(config: Config, source: Source) -> list[tuple[str, Statem
     )
     out.append(("event kinds the config does not map (the run stops on any)",
                 source.statement(unknown, params)))
-    marks_rel, kept = source.plan_stage("marks", marks_sql(config, source), params)
+    per_customer_rel, kept = source.plan_stage(
+        "customer_events", customer_events_sql(config, source), params
+    )
+    if kept is not None:
+        out.append((f"each customer's first event and first start, kept as {per_customer_rel}",
+                    kept))
+    marks_rel, kept = source.plan_stage(
+        "marks", marks_sql(config, source, per_customer_rel), params
+    )
     if kept is not None:
         out.append((f"each customer's spell boundary marks, kept as {marks_rel}", kept))
     spells = spells_sql(config, source, marks_rel)
@@ -47,10 +56,10 @@ def extract_statements(config: Config, source: Source) -> list[tuple[str, Statem
         out.append((f"the spells, one row per customer spell, kept as {spells_rel}", kept))
     out.append(("survival counts per cohort and tenure (the result that leaves the engine)",
                 source.statement(counts_sql(spells_rel, config.cohorts), params)))
-    summary = summary_sql(config, source, spells_rel)
+    summary = summary_sql(config, source, spells_rel, per_customer_rel)
     out.append(("the data summary (one row)", source.statement(summary, params)))
     quality = anomalies_sql(
-        config, source, marks_rel, spells_rel, customer_info_sql(config, source)
+        config, source, marks_rel, spells_rel, per_customer_rel, customer_info_sql(config, source)
     )
     out.append(("what the tenure rules handled (one row of counts)",
                 source.statement(quality, params)))

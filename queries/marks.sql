@@ -7,6 +7,7 @@
 -- Template slots
 --   {events_normalised}  queries/events_normalised.sql (user's columns renamed to roles)
 --   {customer_info}      queries/customers_from_table.sql or customers_from_events.sql
+--   {customer_events}    the per-customer first events queries/customer_events.sql staged
 --
 -- One row per mark: S = a start, T = an end (a cancel, or a failed payment that was not recovered
 -- within the grace period and whose grace period is over by the as-of date), with the mark before
@@ -75,27 +76,15 @@ unrecovered AS (
 
 -- Customers who began before the log and are still active when it starts: their first event in the
 -- log (of any role; codes listed under ignore have none) is not a start. They enter late, at their
--- known signup date. The first event is found by its time (an aggregate, not a sort of every
--- event); when several events share that first instant, a start among them counts as the first
--- event, else the smallest plan and price.
-first_time AS (
-    SELECT
-        customer_id,
-        MIN(event_time) AS first_time,
-        MIN(CASE WHEN list_contains($start_codes, event_kind) THEN event_time END) AS first_start
-    FROM ({events_normalised}) AS raw
-    WHERE event_time >= CAST($log_start AS TIMESTAMP)
-      AND event_time < CAST($as_of AS TIMESTAMP) + INTERVAL 1 DAY
-      AND customer_id IS NOT NULL
-      AND list_contains($role_codes, event_kind)
-    GROUP BY customer_id
-),
-
+-- known signup date. The first event per customer is found once, by its time, in the staged
+-- {customer_events} (an aggregate, not a sort of every event); when several events share that
+-- first instant, a start among them counts as the first event, else the smallest plan and price.
 late_entrants AS (
     SELECT t.customer_id, t.first_time, c.signup_date
-    FROM first_time AS t
+    FROM {customer_events} AS t
     JOIN customer_info AS c ON c.customer_id = t.customer_id
     WHERE c.signup_date < $log_start
+      AND t.first_time IS NOT NULL
       AND (t.first_start IS NULL OR t.first_start > t.first_time)
 ),
 

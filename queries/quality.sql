@@ -8,6 +8,7 @@
 --   {customer_info}      queries/customers_from_table.sql or customers_from_events.sql
 --   {marks}              the boundary marks queries/marks.sql staged from the same log
 --   {spells}             the spells relation that queries/spells.sql made from those marks
+--   {customer_events}    the per-customer first events queries/customer_events.sql staged
 --
 -- spells.sql keeps the first mark of each run (S S T T -> S T). This query counts what that rule
 -- drops, and the returns that the gap rule joins to an earlier spell. The starts kept here, less
@@ -53,8 +54,8 @@ mark_counts AS (
 ),
 
 -- Events dated before the customer's signup date (inside the window, with a role), each distinct
--- event row once; and the customers with an event (inside the window, with a role). Each reads the
--- log in its own scan (a CTE read twice is materialised, a copy of every event).
+-- event row once, from a scan of the log; and the customers with an event (inside the window,
+-- with a role: a first_time in the staged per-customer rows) who have no spell.
 event_counts AS (
     SELECT
         (SELECT COUNT(*) FROM (
@@ -67,17 +68,11 @@ event_counts AS (
               AND CAST(e.event_time AS DATE) < c.signup_date
         ) AS b)                                                        AS n_before_signup,
         (SELECT COUNT(*)
-         FROM (
-             SELECT DISTINCT customer_id
-             FROM ({events_normalised}) AS e
-             WHERE event_time >= CAST($log_start AS TIMESTAMP)
-               AND event_time < CAST($as_of AS TIMESTAMP) + INTERVAL 1 DAY
-               AND customer_id IS NOT NULL
-               AND list_contains($role_codes, event_kind)
-         ) AS t
+         FROM {customer_events} AS t
          LEFT JOIN (SELECT DISTINCT customer_id FROM {spells}) AS s
            ON s.customer_id = t.customer_id
-         WHERE s.customer_id IS NULL)                                  AS n_customers_without_spell
+         WHERE t.first_time IS NOT NULL
+           AND s.customer_id IS NULL)                                  AS n_customers_without_spell
 ),
 
 spell_counts AS (

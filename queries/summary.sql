@@ -1,6 +1,8 @@
 -- summary.sql: the data summary and anomaly counts shown in the report.
 -- Template slots: {events} (the user's table), {events_normalised}, {spells} (spells relation),
--- {customer_id}, {event_time} (quoted columns). Parameters: $log_start, $as_of (DATE).
+-- {customer_events} (the per-customer pass queries/customer_events.sql staged: one row per customer
+-- with an event inside the window), {customer_id}, {event_time} (quoted columns).
+-- Parameters: $log_start, $as_of (DATE).
 WITH
 all_rows AS (
     SELECT
@@ -16,13 +18,14 @@ every_row AS (
         SUM(CASE WHEN event_time < CAST($log_start AS TIMESTAMP) THEN 1 ELSE 0 END) AS n_before_log,
         SUM(CASE WHEN event_time >= CAST($as_of AS TIMESTAMP) + INTERVAL 1 DAY THEN 1 ELSE 0 END)
             AS n_after_as_of,
-        COUNT(DISTINCT CASE
-            WHEN event_time >= CAST($log_start AS TIMESTAMP)
-             AND event_time < CAST($as_of AS TIMESTAMP) + INTERVAL 1 DAY
-            THEN customer_id END) AS n_customers_in_window,
         MIN(event_time) AS first_event,
         MAX(event_time) AS last_event
     FROM ({events_normalised}) AS t
+),
+-- The customers with an event inside the window: counted from the staged per-customer rows, not
+-- by a DISTINCT over every event.
+in_window AS (
+    SELECT COUNT(*) AS n_customers_in_window FROM {customer_events}
 ),
 -- Exact duplicate rows (events_normalised.sql keeps them) share the customer and the instant, so
 -- only the rows at an instant the customer has more than one event at are compared column by
@@ -60,10 +63,10 @@ distinct_rows AS (
         CAST(e.n_events - x.n_extra AS BIGINT)                       AS n_distinct,
         CAST(e.n_before_log - x.n_extra_before_log AS BIGINT)        AS n_before_log,
         CAST(e.n_after_as_of - x.n_extra_after_as_of AS BIGINT)      AS n_after_as_of,
-        e.n_customers_in_window,
+        w.n_customers_in_window,
         e.first_event,
         e.last_event
-    FROM every_row AS e, extra_copies AS x
+    FROM every_row AS e, extra_copies AS x, in_window AS w
 ),
 spell_stats AS (
     SELECT

@@ -192,22 +192,26 @@ def test_statement_is_spark_sql_with_bound_values(demo_pair):
 
     spark_ex, _, spark_cfg, _ = demo_pair
     source = spark_ex.source
-    stmt = source.statement(marks_sql(spark_cfg, source), parameters(spark_cfg))
+    # a statement only (not run): the per-customer relation is named, not staged
+    stmt = source.statement(marks_sql(spark_cfg, source, "churnlife_customer_events_0"),
+                            parameters(spark_cfg))
     assert stmt.dialect == "spark" and "`occurred_at`" in stmt.text
     assert ":as_of" in stmt.text and stmt.values["as_of"] == spark_cfg.as_of
     assert "$" not in stmt.text  # every DuckDB marker became a Spark one
 
 
 def test_shown_statements_are_the_ones_that_run(spark, demo_pair):
-    """--show-sql on Spark: the printed marks and spells statements, run by hand and kept under
-    the printed names, and the printed counts statement give the extract's counts."""
+    """--show-sql on Spark: the printed per-customer, marks and spells statements, run by hand
+    and kept under the printed names, and the printed counts statement give the extract's
+    counts."""
     from churnlife.show_sql import extract_statements, listing
     from churnlife.source_spark import _to_polars
 
     spark_ex, _, spark_cfg, _ = demo_pair
     source = spark_ex.source
     statements = extract_statements(spark_cfg, source)
-    kept, (_, counts) = statements[1:3], statements[3]  # marks, spells, then the counts
+    # the per-customer pass, the marks, the spells, then the counts
+    kept, (_, counts) = statements[1:4], statements[4]
     views = []
     try:
         for title, keep in kept:

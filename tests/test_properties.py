@@ -98,7 +98,8 @@ def _key_counts(counts: pl.DataFrame) -> pl.DataFrame:
 
 def check_conservation(counts: pl.DataFrame, spells: pl.DataFrame, summary: dict) -> None:
     """Every spell enters once and leaves once (a counted churn or a censoring); customers with
-    spells are the spells' customers; quality.sql's marks agree with spells.sql's."""
+    spells are the spells' customers; quality.sql's reading of the staged marks agrees with
+    spells.sql's."""
     n = spells.height
     assert int(counts["entered"].sum()) == n
     assert int((counts["churned"] + counts["censored"]).sum()) == n
@@ -108,8 +109,9 @@ def check_conservation(counts: pl.DataFrame, spells: pl.DataFrame, summary: dict
     assert spells["customer_id"].n_unique() == summary["n_customers_with_spells"]
     with_events = summary["n_customers_with_spells"] + summary["n_customers_without_spell"]
     assert with_events <= summary["n_customers_in_window"]  # the rest had only ignored kinds
-    # quality.sql forms the boundary marks again: its kept starts less the returns joined to an
-    # earlier spell must be exactly the spells that spells.sql made.
+    # quality.sql applies the run rule to the staged marks (queries/marks.sql) on its own, apart
+    # from spells.sql: its kept starts less the returns it joins to an earlier spell must be
+    # exactly the spells that spells.sql made from the same marks.
     assert summary["n_starts_kept"] - summary["n_joined_returns"] == n
 
 

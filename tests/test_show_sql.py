@@ -13,12 +13,14 @@ def test_listing_runs_to_the_extracts_counts(demo_config, demo_extract):
     source = open_source(demo_config)
     statements = extract_statements(demo_config, source)
     titles = [t for t, _ in statements]
-    assert titles[1].startswith("each customer's spell boundary marks")
-    assert titles[2].startswith("the spells") and titles[3].startswith("survival counts")
+    assert titles[1].startswith("each customer's first event")
+    assert titles[2].startswith("each customer's spell boundary marks")
+    assert titles[3].startswith("the spells") and titles[4].startswith("survival counts")
     con = source._con  # type: ignore[attr-defined]
-    for _, keep in statements[1:3]:  # the printed CREATE TEMP TABLEs: marks, then spells
+    # the printed CREATE TEMP TABLEs: the per-customer pass, the marks, then the spells
+    for _, keep in statements[1:4]:
         con.execute(keep.text, keep.values).fetchall()
-    counts = statements[3][1]
+    counts = statements[4][1]
     shown = con.sql(counts.text, params=counts.values).pl()
     assert_frame_equal(shown.drop("cohort_all", strict=False), demo_extract.counts)
     source.close()
@@ -29,6 +31,6 @@ def test_cli_prints_and_writes_nothing(demo_folder, capsys, tmp_path):
                  "--output", str(tmp_path / "out")])
     out = capsys.readouterr().out
     assert code == 0
-    assert "for DuckDB" in out and "CREATE TEMP TABLE churnlife_spells_2" in out
+    assert "for DuckDB" in out and "CREATE TEMP TABLE churnlife_spells_3" in out
     assert "-- bound values:" in out
     assert not (tmp_path / "out").exists()
