@@ -17,6 +17,18 @@ import time
 from dataclasses import dataclass
 from pathlib import Path
 
+import pytest
+
+# .ci/run sets this: in CI the engine tests must run, so a missing engine fails them
+REQUIRE_ENGINES = os.environ.get("CHURNLIFE_REQUIRE_ENGINES") == "1"
+
+
+def engine_unavailable(reason: str) -> None:
+    """Skip the engine test, or fail it when CHURNLIFE_REQUIRE_ENGINES=1."""
+    if REQUIRE_ENGINES:
+        pytest.fail(f"CHURNLIFE_REQUIRE_ENGINES=1, but {reason}")
+    pytest.skip(reason)
+
 
 @dataclass
 class PostgresServer:

@@ -27,16 +27,13 @@ from churnlife.config import load_config, parse_config
 from churnlife.errors import UserError
 from churnlife.extract import run_extract
 from churnlife.source import open_source
-from tests.engine_servers import load_duckdb_tables, postgres_bindir, start_postgres
+from tests.engine_servers import (
+    engine_unavailable,
+    load_duckdb_tables,
+    postgres_bindir,
+    start_postgres,
+)
 from tests.logs import EDGE_CUSTOMERS, EDGE_EVENTS, config_dict, write_log
-
-REQUIRED = os.environ.get("CHURNLIFE_REQUIRE_ENGINES") == "1"
-
-
-def _unavailable(reason: str) -> None:
-    if REQUIRED:
-        pytest.fail(f"{reason} (CHURNLIFE_REQUIRE_ENGINES=1: the engine tests must run)")
-    pytest.skip(reason)
 
 
 @pytest.fixture(scope="module")
@@ -44,9 +41,9 @@ def server():
     try:
         import adbc_driver_postgresql  # noqa: F401
     except ImportError:
-        _unavailable("adbc-driver-postgresql is not installed (pip install '.[postgres]')")
+        engine_unavailable("adbc-driver-postgresql is not installed (pip install '.[postgres]')")
     if postgres_bindir() is None:
-        _unavailable("no PostgreSQL server installed (the distribution's postgresql package)")
+        engine_unavailable("no PostgreSQL server installed (the distribution's postgresql package)")
     srv = start_postgres()
     yield srv
     srv.stop()

@@ -27,6 +27,7 @@ from churnlife.config import parse_config
 from churnlife.errors import UserError
 from churnlife.extract import run_extract
 from churnlife.source import open_source
+from tests.engine_servers import engine_unavailable
 from tests.logs import (
     CUT_SHORT_LOG,
     EDGE_CUSTOMERS,
@@ -39,15 +40,8 @@ from tests.logs import (
 )
 
 ROOT = Path(__file__).resolve().parents[1]
-REQUIRE = os.environ.get("CHURNLIFE_REQUIRE_ENGINES") == "1"
 # a local session on a small log: a few shuffle partitions instead of Spark's 200
 SPARK_CONF = {"spark.sql.shuffle.partitions": "2"}
-
-
-def _unavailable(reason: str) -> None:
-    if REQUIRE:
-        pytest.fail(f"CHURNLIFE_REQUIRE_ENGINES=1, but {reason}")
-    pytest.skip(reason)
 
 
 @pytest.fixture(scope="module")
@@ -55,10 +49,10 @@ def spark():
     try:
         import pyspark  # noqa: F401
     except ImportError:
-        _unavailable("pyspark is not installed (pip install 'churnlife[spark]')")
+        engine_unavailable("pyspark is not installed (pip install 'churnlife[spark]')")
     java_home = os.environ.get("JAVA_HOME")
     if not shutil.which("java") and not (java_home and (Path(java_home) / "bin" / "java").exists()):
-        _unavailable("no Java found (java on the PATH or JAVA_HOME) for a Spark session")
+        engine_unavailable("no Java found (java on the PATH or JAVA_HOME) for a Spark session")
     from churnlife.source_spark import session_for
 
     session, owned, _ = session_for("local[2]", SPARK_CONF)
