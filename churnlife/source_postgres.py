@@ -137,7 +137,8 @@ class PostgresSource:
             cur.execute(text, parameters=values or None)
             table = cur.fetch_arrow_table()
         except KeyboardInterrupt:
-            self._con.adbc_cancel() if hasattr(self._con, "adbc_cancel") else None
+            with contextlib.suppress(Exception):  # ask the server to stop the query too
+                cur.adbc_cancel()
             raise
         except Exception as err:
             cur.execute("ROLLBACK TO SAVEPOINT churnlife_query")
